@@ -1,0 +1,315 @@
+"""Run configuration: TOML schema, layering and validation.
+
+Layers, later wins: built-in defaults, the TOML file, ``dotted.key=value`` overrides from
+the command line.  Every problem is reported as one `ConfigError` naming the source (file
+or command line), the dotted key and the offending value, before any work starts.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from solitons.energy import SCHEMES
+from solitons.grid import BOUNDARIES
+from solitons.minimise import METHODS
+from solitons.terms import BUILTIN_TERMS
+
+FAMILIES = ("axial",)
+
+DEFAULTS: dict[str, Any] = {
+    "grid": {"points": 64, "spacing": 0.125, "boundary": "fixed", "scheme": "second"},
+    "terms": {"dirichlet": {"coupling": 1.0}, "skyrme_faddeev": {"coupling": 1.0}},
+    "initial": {"family": "axial", "a": 1, "b": 1, "size": 1.0, "centre": [0.0, 0.0, 0.0],
+                "noise": 0.0, "seed": 0},
+    "relax": {"method": "lbfgs", "max_steps": 4000, "force_tol": 1e-3, "energy_tol": 1e-10,
+              "patience": 20, "time_step": 0.0, "checkpoint_every": 100,
+              "progress_seconds": 5.0},
+}
+
+# key -> (type description, checker); checkers return an error string or None
+_TERM_KEYS = ("kind", "coupling")
+
+
+class ConfigError(ValueError):
+    """A bad configuration: message names source, key and value."""
+
+    def __init__(self, source: str, key: str, value: Any, problem: str):
+        self.source, self.key, self.value, self.problem = source, key, value, problem
+        super().__init__(f"{source}: {key} = {_show(value)}: {problem}")
+
+
+def _show(value: Any) -> str:
+    if isinstance(value, str):
+        return repr(value)
+    if isinstance(value, dict):
+        return "{table}"
+    return str(value)
+
+
+@dataclass(frozen=True)
+class GridSpec:
+    points: tuple[int, int, int]
+    spacing: tuple[float, float, float]
+    boundary: str
+    scheme: str
+
+
+@dataclass(frozen=True)
+class TermSpec:
+    name: str
+    kind: str
+    coupling: float
+
+
+@dataclass(frozen=True)
+class InitialSpec:
+    family: str
+    a: int
+    b: int
+    size: float
+    centre: tuple[float, float, float]
+    noise: float
+    seed: int
+
+    @property
+    def expected_charge(self) -> int:
+        return self.a * self.b
+
+
+@dataclass(frozen=True)
+class RelaxSpec:
+    method: str
+    max_steps: int
+    force_tol: float
+    energy_tol: float
+    patience: int
+    time_step: float
+    checkpoint_every: int
+    progress_seconds: float
+
+
+@dataclass(frozen=True)
+class RunSpec:
+    grid: GridSpec
+    terms: tuple[TermSpec, ...]
+    initial: InitialSpec
+    relax: RelaxSpec
+    text: str  # the merged configuration as TOML, written into every output file
+
+
+def _is_int(v):
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+def _is_real(v):
+    return (isinstance(v, (int, float)) and not isinstance(v, bool)) and math.isfinite(v)
+
+
+class _Checker:
+    def __init__(self, merged: dict, sources: dict[str, str]):
+        self.merged = merged
+        self.sources = sources
+
+    def fail(self, key, value, problem):
+        raise ConfigError(self.sources.get(key, self.sources.get("*", "config")), key, value, problem)
+
+    def get(self, table, name):
+        return self.merged[table][name]
+
+    def integer(self, table, name, minimum=None):
+        key, v = f"{table}.{name}", self.get(table, name)
+        if not _is_int(v):
+            self.fail(key, v, "must be an integer")
+        if minimum is not None and v < minimum:
+            self.fail(key, v, f"must be at least {minimum}")
+        return int(v)
+
+    def real(self, table, name, positive=False, non_negative=False):
+        key, v = f"{table}.{name}", self.get(table, name)
+        if not _is_real(v):
+            self.fail(key, v, "must be a finite number")
+        if positive and v <= 0:
+            self.fail(key, v, "must be positive")
+        if non_negative and v < 0:
+            self.fail(key, v, "must not be negative")
+        return float(v)
+
+    def choice(self, table, name, options):
+        key, v = f"{table}.{name}", self.get(table, name)
+        if not isinstance(v, str) or v not in options:
+            self.fail(key, v, f"must be one of {', '.join(options)}")
+        return v
+
+    def triple(self, table, name, kind, positive=False):
+        key, v = f"{table}.{name}", self.get(table, name)
+        values = [v] * 3 if not isinstance(v, list) else v
+        if len(values) != 3:
+            self.fail(key, v, "must be one value or a list of three")
+        ok = _is_int if kind == "int" else _is_real
+        for item in values:
+            if not ok(item):
+                self.fail(key, v, f"must hold {'integers' if kind == 'int' else 'finite numbers'}")
+            if positive and item <= 0:
+                self.fail(key, v, "must be positive")
+        return tuple(int(x) if kind == "int" else float(x) for x in values)
+
+
+def _merge_file(merged: dict, data: dict, source: str, sources: dict):
+    for table, content in data.items():
+        if table not in DEFAULTS:
+            raise ConfigError(source, table, content, f"unknown table; expected one of {', '.join(DEFAULTS)}")
+        if not isinstance(content, dict):
+            raise ConfigError(source, table, content, "must be a table")
+        if table == "terms":
+            merged["terms"] = {}
+            for name, term in content.items():
+                key = f"terms.{name}"
+                if not isinstance(term, dict):
+                    raise ConfigError(source, key, term, "must be a table with kind and coupling")
+                for sub in term:
+                    if sub not in _TERM_KEYS:
+                        raise ConfigError(source, f"{key}.{sub}", term[sub],
+                                          f"unknown key; expected {', '.join(_TERM_KEYS)}")
+                merged["terms"][name] = dict(term)
+                for sub in term:
+                    sources[f"{key}.{sub}"] = source
+                sources[key] = source
+            continue
+        for name, value in content.items():
+            key = f"{table}.{name}"
+            if name not in DEFAULTS[table]:
+                raise ConfigError(source, key, value,
+                                  f"unknown key; expected one of {', '.join(DEFAULTS[table])}")
+            merged[table][name] = value
+            sources[key] = source
+
+
+def parse_override(text: str) -> tuple[str, Any]:
+    """``dotted.key=value``; the value is read as TOML, or kept as a bare string."""
+    if "=" not in text:
+        raise ConfigError("command line", text, text, "an override must look like dotted.key=value")
+    key, raw = text.split("=", 1)
+    key = key.strip()
+    try:
+        value = tomllib.loads(f"v = {raw}")["v"]
+    except tomllib.TOMLDecodeError:
+        value = raw.strip()
+    return key, value
+
+
+def _apply_override(merged: dict, key: str, value: Any, sources: dict):
+    parts = key.split(".")
+    source = "command line"
+    if parts[0] == "terms" and len(parts) == 3:
+        _, name, sub = parts
+        if sub not in _TERM_KEYS:
+            raise ConfigError(source, key, value, f"unknown key; expected {', '.join(_TERM_KEYS)}")
+        merged["terms"].setdefault(name, {})[sub] = value
+    elif len(parts) == 2 and parts[0] in DEFAULTS and parts[0] != "terms":
+        if parts[1] not in DEFAULTS[parts[0]]:
+            raise ConfigError(source, key, value,
+                              f"unknown key; expected one of {', '.join(DEFAULTS[parts[0]])}")
+        merged[parts[0]][parts[1]] = value
+    else:
+        raise ConfigError(source, key, value, "unknown key")
+    sources[key] = source
+
+
+def load(path: str | Path | None, overrides: list[str] = (), text: str | None = None) -> RunSpec:
+    """Read, merge and validate a configuration (``text`` instead of a file if given)."""
+    source = str(path) if path is not None else "built-in example"
+    if text is None:
+        try:
+            text = Path(path).read_text()
+        except OSError as error:
+            raise ConfigError(source, "(file)", str(path), f"cannot be read: {error.strerror}") from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as error:
+        raise ConfigError(source, "(syntax)", "", f"not valid TOML: {error}") from None
+    merged = copy.deepcopy(DEFAULTS)
+    sources: dict[str, str] = {"*": source}
+    _merge_file(merged, data, source, sources)
+    for item in overrides:
+        key, value = parse_override(item)
+        _apply_override(merged, key, value, sources)
+    return validate(merged, sources)
+
+
+def validate(merged: dict, sources: dict) -> RunSpec:
+    c = _Checker(merged, sources)
+    grid = GridSpec(
+        points=c.triple("grid", "points", "int", positive=True),
+        spacing=c.triple("grid", "spacing", "real", positive=True),
+        boundary=c.choice("grid", "boundary", BOUNDARIES),
+        scheme=c.choice("grid", "scheme", tuple(SCHEMES)),
+    )
+    smallest = 2 * SCHEMES[grid.scheme] + 3
+    if min(grid.points) < smallest:
+        c.fail("grid.points", merged["grid"]["points"],
+               f"the {grid.scheme}-order stencil needs at least {smallest} points per axis")
+
+    if not merged["terms"]:
+        c.fail("terms", {}, "at least one energy term is needed")
+    terms = []
+    for name, term in merged["terms"].items():
+        kind = term.get("kind", name)
+        if not isinstance(kind, str) or kind not in BUILTIN_TERMS:
+            c.fail(f"terms.{name}.kind" if "kind" in term else f"terms.{name}", kind,
+                   f"unknown term kind; built-in kinds: {', '.join(BUILTIN_TERMS)}")
+        coupling = term.get("coupling", 1.0)
+        if not _is_real(coupling):
+            c.fail(f"terms.{name}.coupling", coupling, "must be a finite number")
+        terms.append(TermSpec(name, kind, float(coupling)))
+
+    initial = InitialSpec(
+        family=c.choice("initial", "family", FAMILIES),
+        a=c.integer("initial", "a", minimum=1),
+        b=c.integer("initial", "b", minimum=1),
+        size=c.real("initial", "size", positive=True),
+        centre=c.triple("initial", "centre", "real"),
+        noise=c.real("initial", "noise", non_negative=True),
+        seed=c.integer("initial", "seed", minimum=0),
+    )
+    relax = RelaxSpec(
+        method=c.choice("relax", "method", METHODS),
+        max_steps=c.integer("relax", "max_steps", minimum=1),
+        force_tol=c.real("relax", "force_tol", non_negative=True),
+        energy_tol=c.real("relax", "energy_tol", non_negative=True),
+        patience=c.integer("relax", "patience", minimum=1),
+        time_step=c.real("relax", "time_step", non_negative=True),
+        checkpoint_every=c.integer("relax", "checkpoint_every", minimum=0),
+        progress_seconds=c.real("relax", "progress_seconds", non_negative=True),
+    )
+    return RunSpec(grid, tuple(terms), initial, relax, dumps(merged))
+
+
+def _toml_value(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
+    if isinstance(value, float):
+        return repr(value)
+    if isinstance(value, list):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    return str(value)
+
+
+def dumps(merged: dict) -> str:
+    """The merged configuration as TOML text (readable back by `load`)."""
+    lines = []
+    for table in ("grid", "initial", "relax"):
+        lines.append(f"[{table}]")
+        lines += [f"{k} = {_toml_value(v)}" for k, v in merged[table].items()]
+        lines.append("")
+    for name, term in merged["terms"].items():
+        lines.append(f"[terms.{name}]")
+        lines += [f"{k} = {_toml_value(v)}" for k, v in term.items()]
+        lines.append("")
+    return "\n".join(lines)

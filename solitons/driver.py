@@ -1,0 +1,211 @@
+"""One relaxation from a validated RunSpec to result files: the edge where the pure core
+(model, initial data, minimiser, topology, verdicts) meets files and the terminal."""
+
+from __future__ import annotations
+
+import hashlib
+import sys
+import time
+from pathlib import Path
+from typing import Callable, TextIO
+
+import numpy as np
+
+from solitons import __version__
+from solitons.config import RunSpec
+from solitons.diagnose import assess
+from solitons.energy import Model
+from solitons.grid import Grid
+from solitons.initial import add_noise, axial_map
+from solitons.io import read_checkpoint, write_checkpoint, write_json, write_result
+from solitons.minimise import History, StoppingRule, minimise
+from solitons.terms import BUILTIN_TERMS, Term
+from solitons.topology import hopf_charge
+
+NORMALISATION_TEXT = (
+    "E = 1/(32 sqrt(2) pi^2) * sum_terms coupling * Int density d^3x; with dirichlet and "
+    "skyrme_faddeev couplings 1 this is the Battye-Sutcliffe normalisation (Q = 1 minimum ~ 1.22)"
+)
+
+RESULT = "result.h5"
+SUMMARY = "summary.json"
+CHECKPOINT = "checkpoint.h5"
+
+# Peak bytes per grid point of one float64 value_and_grad, measured with
+# analysis/bench_memory.py; used to refuse grids that cannot fit.
+BYTES_PER_POINT = 1400
+
+
+class RunError(RuntimeError):
+    """A run cannot start (bad output directory, memory, resume mismatch)."""
+
+
+def make_grid(spec: RunSpec) -> Grid:
+    return Grid.centred(spec.grid.points, spec.grid.spacing, spec.grid.boundary)
+
+
+def make_model(spec: RunSpec, grid: Grid) -> Model:
+    terms = tuple(Term(t.name, BUILTIN_TERMS[t.kind], t.coupling) for t in spec.terms)
+    return Model(terms, grid, spec.grid.scheme)
+
+
+def make_initial_field(spec: RunSpec, grid: Grid) -> np.ndarray:
+    init = spec.initial
+    field = axial_map(grid, init.a, init.b, init.size, init.centre)
+    if grid.boundary == "fixed":
+        field = field * grid.free_mask() + np.array([0.0, 0.0, 1.0]) * (1.0 - grid.free_mask())
+    return add_noise(field, grid, init.noise, init.seed)
+
+
+def config_hash(text: str) -> str:
+    return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+def available_memory_bytes() -> int | None:
+    try:
+        for line in Path("/proc/meminfo").read_text().splitlines():
+            if line.startswith("MemAvailable:"):
+                return int(line.split()[1]) * 1024
+    except OSError:
+        return None
+    return None
+
+
+def check_memory(grid: Grid) -> None:
+    need = BYTES_PER_POINT * grid.npoints
+    have = available_memory_bytes()
+    if have is not None and need > 0.9 * have:
+        raise RunError(
+            f"grid {grid.shape} needs about {need / 2**30:.1f} GiB "
+            f"({BYTES_PER_POINT} bytes per point) but {have / 2**30:.1f} GiB is available"
+        )
+
+
+class Progress:
+    """Progress lines on a stream at most every ``seconds``."""
+
+    def __init__(self, stream: TextIO | None, seconds: float):
+        self.stream = stream
+        self.seconds = seconds
+        self.last = -np.inf
+        self.last_step = 0
+
+    def __call__(self, step, energy, force, elapsed):
+        if self.stream is None or elapsed - self.last < self.seconds:
+            return
+        rate = (step - self.last_step) / max(elapsed - self.last, 1e-9) if np.isfinite(self.last) else step / max(elapsed, 1e-9)
+        self.last, self.last_step = elapsed, step
+        print(f"  step {step:6d}  E = {energy:.8f}  max force {force:.2e}  "
+              f"{rate:.1f} steps/s  {elapsed:.0f} s", file=self.stream, flush=True)
+
+
+def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: bool = False,
+          stream: TextIO | None = sys.stderr) -> dict:
+    """Relax the configuration of ``spec`` and write DIR/result.h5 and DIR/summary.json.
+    Returns the summary dictionary.  ``stream`` receives progress (None: quiet)."""
+    out = Path(out_dir)
+    grid = make_grid(spec)
+    model = make_model(spec, grid)
+    check_memory(grid)
+    checkpoint_path = out / CHECKPOINT
+    history, start_step = None, 0
+    if resume:
+        if not checkpoint_path.exists():
+            raise RunError(f"{checkpoint_path}: no checkpoint to resume from")
+        saved = read_checkpoint(checkpoint_path)
+        if config_hash(saved["config"]) != config_hash(spec.text):
+            raise RunError(f"{checkpoint_path}: the checkpoint belongs to a different configuration")
+        field0 = saved["field"]
+        history = History.from_arrays(saved["history"])
+        start_step = saved["step"]
+    else:
+        if (out / RESULT).exists() and not overwrite:
+            raise RunError(f"{out / RESULT} exists; pass --overwrite to replace it or --resume")
+        field0 = make_initial_field(spec, grid)
+    out.mkdir(parents=True, exist_ok=True)
+
+    def checkpoint(field, step, hist):
+        write_checkpoint(checkpoint_path, field, grid, step, hist.as_arrays(), spec.text)
+
+    relax_spec = spec.relax
+    rule = StoppingRule(relax_spec.max_steps, relax_spec.force_tol, relax_spec.energy_tol,
+                        relax_spec.patience)
+    if stream is not None:
+        print(f"relaxing Q = {spec.initial.expected_charge} ({spec.initial.family} a={spec.initial.a} "
+              f"b={spec.initial.b}) on {grid.shape[0]}x{grid.shape[1]}x{grid.shape[2]}, "
+              f"h = {grid.spacing}, box side {grid.side}, {grid.boundary} boundary, "
+              f"{spec.grid.scheme}-order scheme, method {relax_spec.method}",
+              file=stream, flush=True)
+    start = time.perf_counter()
+    result = minimise(
+        model, field0, relax_spec.method, rule,
+        time_step=relax_spec.time_step or None,
+        history=history, start_step=start_step,
+        progress=Progress(stream, relax_spec.progress_seconds),
+        checkpoint=checkpoint, checkpoint_every=relax_spec.checkpoint_every,
+    )
+    field = result.field
+    energies = model.energies(field)
+    virial = model.virial(field)
+    charge = hopf_charge(field, grid)
+    density = model.energy_density(field)
+    verdict = assess(field, grid, density, charge, spec.initial.expected_charge,
+                     virial["total"], result.status)
+    summary = {
+        "energy": float(sum(energies.values())),
+        "terms": energies,
+        "hopf_charge": charge,
+        "expected_charge": spec.initial.expected_charge,
+        "virial": virial["total"],
+        "virial_per_axis": virial["per_axis"],
+        "converged": result.converged,
+        "status": result.status,
+        "iterations": result.steps,
+        "evaluations": result.evaluations,
+        "max_force": result.max_force,
+        "grid": {"shape": list(grid.shape), "spacing": list(grid.spacing),
+                 "origin": list(grid.origin), "boundary": grid.boundary,
+                 "scheme": spec.grid.scheme, "box_side": list(grid.side)},
+        "method": relax_spec.method,
+        "verdict": verdict["verdict"],
+        "evidence": verdict["evidence"],
+        "warnings": verdict["warnings"],
+        "wall_seconds": time.perf_counter() - start,
+        "normalisation": NORMALISATION_TEXT,
+        "version": __version__,
+        "config_hash": config_hash(spec.text),
+    }
+    write_result(out / RESULT, field, grid, density, summary, result.history.as_arrays(),
+                 spec.text, __version__)
+    write_json(out / SUMMARY, summary)
+    checkpoint_path.unlink(missing_ok=True)
+    return summary
+
+
+def report(summary: dict, out_dir: str | Path, stream: TextIO = sys.stdout) -> None:
+    """Human-readable account of a finished run."""
+    e = summary["evidence"]
+    g = summary["grid"]
+    lines = [
+        f"energy        E = {summary['energy']:.6f}   (Battye-Sutcliffe units; Q=1 minimum ~1.22)",
+    ]
+    for name, value in summary["terms"].items():
+        lines.append(f"  {name:22s} {value:.6f}")
+    lines += [
+        f"trust         virial residual {summary['virial']:+.4f} "
+        f"(per axis {', '.join(f'{v:+.4f}' for v in summary['virial_per_axis'])}); "
+        f"spacing / core thickness {e['spacing_over_thickness']:.3f} "
+        f"(core thickness {e['core_thickness']:.3f}); "
+        f"boundary energy {100 * e['boundary_energy_fraction']:.3f} %",
+        f"Hopf charge   Q = {summary['hopf_charge']:.6f}   (expected {summary['expected_charge']})",
+        f"converged     {'yes' if summary['converged'] else 'NO'} ({summary['status']}, "
+        f"{summary['iterations']} steps, {summary['evaluations']} evaluations, "
+        f"max force {summary['max_force']:.2e}, {summary['wall_seconds']:.1f} s)",
+        f"grid          {g['shape'][0]}x{g['shape'][1]}x{g['shape'][2]}, h = {g['spacing'][0]:g}, "
+        f"box side {g['box_side'][0]:g}, {g['boundary']}, {g['scheme']}-order",
+        f"verdict       {summary['verdict']}",
+    ]
+    for warning in summary["warnings"]:
+        lines.append(f"WARNING       {warning}")
+    lines.append(f"files         {Path(out_dir) / RESULT}  {Path(out_dir) / SUMMARY}")
+    print("\n".join(lines), file=stream, flush=True)

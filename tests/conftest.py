@@ -1,0 +1,29 @@
+"""Shared test setup: float64 and strict jax promotion, so silent broadcasting or float32
+downgrades fail loudly (common practice, after the solver-library style guide)."""
+
+import jax
+import numpy as np
+import pytest
+
+import solitons  # noqa: F401  (turns on float64)
+from solitons.energy import Model
+from solitons.grid import Grid
+from solitons.terms import BUILTIN_TERMS, Term
+
+jax.config.update("jax_enable_x64", True)
+jax.config.update("jax_numpy_rank_promotion", "raise")
+jax.config.update("jax_numpy_dtype_promotion", "strict")
+
+SKYRME_FADDEEV = (
+    Term("dirichlet", BUILTIN_TERMS["dirichlet"]),
+    Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"]),
+)
+
+
+def skyrme_faddeev_model(grid: Grid, scheme: str = "second") -> Model:
+    return Model(SKYRME_FADDEEV, grid, scheme)
+
+
+@pytest.fixture
+def rng():
+    return np.random.default_rng(12345)

@@ -1,0 +1,22 @@
+"""Analytic test fields shared by the tests (not part of the package)."""
+
+import numpy as np
+
+
+def twisted_field(grid, amplitude=1.2, wave=None):
+    """A smooth periodic unit field n = (sin t cos p, sin t sin p, cos t) with
+    t = amplitude * sin(k x) and p = k (y + z), k = 2 pi / L.  Returns (field, k)."""
+    x, y, z = grid.mesh()
+    k = 2 * np.pi / grid.side[0] if wave is None else wave
+    theta = amplitude * np.sin(k * x)
+    phi = k * (y + z)
+    field = np.stack((np.sin(theta) * np.cos(phi), np.sin(theta) * np.sin(phi), np.cos(theta)), -1)
+    return field, k
+
+
+def random_rotation(rng):
+    q, r = np.linalg.qr(rng.standard_normal((3, 3)))
+    q = q * np.sign(np.diag(r))
+    if np.linalg.det(q) < 0:
+        q[:, 0] = -q[:, 0]
+    return q
