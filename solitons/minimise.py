@@ -1,9 +1,15 @@
 """Minimisers on the product of spheres, each a small loop around one jitted
 value_and_grad.
 
-* ``lbfgs``: scipy's L-BFGS-B on the unconstrained parametrisation n = u / |u| (the energy
-  is composed with the normalisation, so jax differentiates through it); held border sites
-  get zero gradient and never move.
+* ``lbfgs``: limited-memory BFGS on the product of spheres (Nocedal & Wright, Numerical
+  Optimization, 2nd ed., Alg. 7.4 two-loop recursion): the search direction is built from
+  tangent gradients, a step moves along it and renormalises (retraction), stored pairs are
+  transported by projection onto the new tangent planes, and a backtracking Armijo line
+  search guards each step.  Written in jax so that the whole update runs in one jitted
+  call (scipy's L-BFGS-B was measured to spend as long per iteration as the energy itself
+  on 64^3 grids).
+* ``scipy_lbfgs``: scipy's L-BFGS-B on the unconstrained parametrisation n = u / |u|, kept
+  as an independent reference implementation.
 * ``arrested_newton``: second-order flow  d^2 n / dt^2 = force, force = -P(dE/dn) / s with
   s = NORMALISATION * cell volume (so the force is the Euler-Lagrange expression of the
   density); symplectic Euler with the velocity projected on the tangent plane, and the
@@ -32,7 +38,7 @@ import scipy.optimize
 
 from solitons.energy import Model, normalise, project_tangent
 
-METHODS = ("lbfgs", "arrested_newton", "gradient_flow")
+METHODS = ("lbfgs", "arrested_newton", "gradient_flow", "scipy_lbfgs")
 
 CONVERGED = "converged"
 MAX_STEPS = "max_steps"
@@ -150,7 +156,8 @@ def minimise(
         raise ValueError(f"unknown method {method!r}; choose from {METHODS}")
     tracker = _Tracker(model, rule, history, start_step, progress, checkpoint, checkpoint_every)
     start = time.perf_counter()
-    runner = {"lbfgs": _lbfgs, "arrested_newton": _arrested_newton, "gradient_flow": _gradient_flow}
+    runner = {"lbfgs": _lbfgs, "arrested_newton": _arrested_newton,
+              "gradient_flow": _gradient_flow, "scipy_lbfgs": _scipy_lbfgs}
     field, status, evaluations, message = runner[method](
         model, jnp.asarray(field0, dtype=jnp.float64), tracker, rule, time_step, lbfgs_memory
     )
@@ -231,7 +238,7 @@ def _gradient_flow(model, field, tracker, rule, time_step, _memory):
     return field, MAX_STEPS, evaluations, f"stopped after max_steps={rule.max_steps}"
 
 
-def _lbfgs(model, field, tracker, rule, _time_step, memory):
+def _scipy_lbfgs(model, field, tracker, rule, _time_step, memory):
     shape = field.shape
     scale = model.force_scale()
 
@@ -288,3 +295,83 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory):
     message = {MAX_STEPS: "stopped before the stopping rule was met (step or line-search limit)",
                NON_FINITE: "energy became non-finite"}.get(status, "")
     return field, status, state["evaluations"], message
+
+
+def _lbfgs(model, field, tracker, rule, _time_step, memory):
+    scale = model.force_scale()
+    mask = jnp.asarray(model.grid.free_mask(), dtype=jnp.float64)
+
+    def inner(a, b):
+        return jnp.sum(a * b)
+
+    @jax.jit
+    def direction(field, gradient, pairs):
+        """Two-loop recursion; ``pairs`` is a tuple of (s, y, rho), oldest first (one
+        compilation per history length, at most memory + 1)."""
+        q = gradient
+        alphas = []
+        for s_vec, y_vec, rho in reversed(pairs):
+            alpha = rho * inner(s_vec, q)
+            q = q - alpha * y_vec
+            alphas.append(alpha)
+        if pairs:
+            s_vec, y_vec, _ = pairs[-1]
+            q = q * (inner(s_vec, y_vec) / inner(y_vec, y_vec))
+        for (s_vec, y_vec, rho), alpha in zip(pairs, reversed(alphas)):
+            beta = rho * inner(y_vec, q)
+            q = q + s_vec * (alpha - beta)
+        return project_tangent(field, -q) * mask
+
+    @jax.jit
+    def trial(field, step, alpha):
+        new_field = normalise(field + alpha * step)
+        value, gradient = model.value_and_grad(new_field)
+        return new_field, value, gradient, jnp.max(jnp.linalg.norm(gradient, axis=-1)) / scale
+
+    @jax.jit
+    def new_pair(new_field, gradient, new_gradient, step, alpha):
+        # transport the step and the old gradient to the new tangent planes
+        s_vec = project_tangent(new_field, alpha * step) * mask
+        y_vec = (new_gradient - project_tangent(new_field, gradient) * mask) / scale
+        sy = inner(s_vec, y_vec)
+        return s_vec, y_vec, sy, jnp.sqrt(inner(s_vec, s_vec) * inner(y_vec, y_vec))
+
+    # Gradients are divided by the force scale so that the curvature pairs are O(1).
+    value, gradient = model.value_and_grad(field)
+    pairs: list = []
+    evaluations = 1
+    value = float(value)
+    h = min(model.grid.spacing)
+    for _ in range(rule.max_steps):
+        step = direction(field, gradient / scale, tuple(pairs))
+        slope = float(inner(gradient, step))
+        if not slope < 0:  # not a descent direction: restart from steepest descent
+            pairs = []
+            step = -gradient / scale
+            slope = float(inner(gradient, step))
+        alpha = 1.0
+        if not pairs:  # no curvature known: move no site by more than a tenth of h
+            largest = float(jnp.max(jnp.linalg.norm(step, axis=-1)))
+            alpha = min(1.0, 0.1 * h / max(largest, 1e-300))
+        accepted = False
+        for _ in range(30):
+            new_field, new_value, new_gradient, max_force = trial(field, step, alpha)
+            evaluations += 1
+            new_value = float(new_value)
+            if math.isfinite(new_value) and new_value <= value + 1e-4 * alpha * slope:
+                accepted = True
+                break
+            alpha *= 0.5 if math.isfinite(new_value) else 0.1
+        if not accepted:
+            if not math.isfinite(new_value):
+                tracker.record(field, new_value, float(max_force))
+                return field, NON_FINITE, evaluations, "energy became non-finite"
+            return field, MAX_STEPS, evaluations, "line search failed (rounding-error level reached)"
+        s_vec, y_vec, sy, size = new_pair(new_field, gradient, new_gradient, step, alpha)
+        if float(sy) > 1e-12 * float(size):
+            pairs = (pairs + [(s_vec, y_vec, 1.0 / sy)])[-memory:]
+        field, value, gradient = new_field, new_value, new_gradient
+        status = tracker.record(field, value, float(max_force))
+        if status:
+            return field, status, evaluations, ""
+    return field, MAX_STEPS, evaluations, f"stopped after max_steps={rule.max_steps}"
