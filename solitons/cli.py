@@ -23,13 +23,13 @@ def _parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", required=True)
     relax = sub.add_parser("relax", help="relax one configuration described by a TOML file")
     relax.add_argument("config", help="TOML configuration file")
-    relax.add_argument("overrides", nargs="*", metavar="dotted.key=value",
-                       help="override configuration entries, e.g. grid.points=48")
     relax.add_argument("--out", help="output directory (default runs/<config name>)")
     demo = sub.add_parser("demo", help="relax the built-in example: the charge-1 Hopf soliton")
-    demo.add_argument("overrides", nargs="*", metavar="dotted.key=value")
     demo.add_argument("--out", default="runs/demo", help="output directory (default runs/demo)")
     for p in (relax, demo):
+        p.add_argument("overrides", nargs="*", metavar="dotted.key=value",
+                       help="override configuration entries, e.g. grid.points=48 (anywhere "
+                            "on the line)")
         p.add_argument("--resume", action="store_true", help="continue from DIR/checkpoint.h5")
         p.add_argument("--overwrite", action="store_true", help="replace an existing result")
         p.add_argument("--quiet", action="store_true", help="no progress lines on stderr")
@@ -41,7 +41,12 @@ def demo_config_text() -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
-    args = _parser().parse_args(argv)
+    parser = _parser()
+    args, extra = parser.parse_known_args(argv)
+    unknown = [item for item in extra if item.startswith("-") or "=" not in item]
+    if unknown:
+        parser.error(f"unrecognised arguments: {' '.join(unknown)}")
+    args.overrides = list(args.overrides) + extra
     # Imports after parsing so that --help answers without loading jax.
     from solitons.config import ConfigError, load
     from solitons.driver import RunError, relax, report

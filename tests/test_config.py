@@ -1,0 +1,98 @@
+"""Configuration errors stop before any work with one line naming file, key and value."""
+
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from solitons.config import ConfigError, dumps, load, parse_override
+
+GOOD = """
+[grid]
+points = 24
+spacing = 0.3
+
+[initial]
+a = 1
+b = 2
+"""
+
+
+def write(tmp_path, text, name="run.toml"):
+    path = tmp_path / name
+    path.write_text(text)
+    return path
+
+
+def test_defaults_and_layering(tmp_path):
+    spec = load(write(tmp_path, GOOD), ["grid.spacing=0.25", "terms.skyrme_faddeev.coupling=2"])
+    assert spec.grid.points == (24, 24, 24)
+    assert spec.grid.spacing == (0.25, 0.25, 0.25)
+    assert spec.initial.expected_charge == 2
+    assert [(t.name, t.coupling) for t in spec.terms] == [("dirichlet", 1.0), ("skyrme_faddeev", 2.0)]
+    # the merged text reads back to the same spec
+    again = load(None, text=spec.text)
+    assert again == spec
+
+
+BAD_CASES = [
+    ("[grid]\npointz = 24\n", [], "grid.pointz", "unknown key"),
+    ("[grdi]\npoints = 24\n", [], "grdi", "unknown table"),
+    ("[grid]\nspacing = -0.1\n", [], "grid.spacing", "must be positive"),
+    ("[grid]\nspacing = \"fine\"\n", [], "grid.spacing", "finite numbers"),
+    ("[grid]\npoints = 4\n", [], "grid.points", "stencil needs at least 5"),
+    ("[grid]\npoints = 6\nscheme = \"fourth\"\n", [], "grid.points", "at least 7"),
+    ("[grid]\nboundary = \"open\"\n", [], "grid.boundary", "must be one of"),
+    ("[initial]\na = 1.5\n", [], "initial.a", "must be an integer"),
+    ("[initial]\nb = 0\n", [], "initial.b", "at least 1"),
+    ("[terms.mystery]\ncoupling = 1.0\n", [], "terms.mystery", "unknown term kind"),
+    ("[terms.dirichlet]\ncoupling = \"one\"\n", [], "terms.dirichlet.coupling", "finite number"),
+    ("[terms.dirichlet]\nweight = 1.0\n", [], "terms.dirichlet.weight", "unknown key"),
+    ("[relax]\nmethod = \"newton\"\n", [], "relax.method", "must be one of"),
+    ("[relax]\nmax_steps = 0\n", [], "relax.max_steps", "at least 1"),
+    ("", ["grid.points=x"], "grid.points", "integers"),
+    ("", ["relax.bogus=1"], "relax.bogus", "unknown key"),
+    ("[grid\n", [], "(syntax)", "not valid TOML"),
+]
+
+
+@pytest.mark.parametrize("text, overrides, key, problem", BAD_CASES)
+def test_each_error_names_file_key_and_value(tmp_path, text, overrides, key, problem):
+    path = write(tmp_path, text)
+    with pytest.raises(ConfigError) as info:
+        load(path, overrides)
+    message = str(info.value)
+    assert info.value.key == key
+    assert problem in message
+    expected_source = "command line" if overrides else str(path)
+    assert message.startswith(expected_source)
+
+
+def test_missing_file(tmp_path):
+    with pytest.raises(ConfigError) as info:
+        load(tmp_path / "absent.toml")
+    assert "cannot be read" in str(info.value)
+
+
+def test_override_values_are_read_as_toml():
+    assert parse_override("grid.points=[20, 22, 24]") == ("grid.points", [20, 22, 24])
+    assert parse_override("relax.method=arrested_newton") == ("relax.method", "arrested_newton")
+    assert parse_override("grid.spacing=0.2") == ("grid.spacing", 0.2)
+
+
+def test_dumps_quotes_strings():
+    text = dumps({"grid": {"boundary": 'a"b'}, "initial": {}, "relax": {}, "terms": {}})
+    assert 'boundary = "a\\"b"' in text
+
+
+def test_cli_config_error_exits_2_and_writes_nothing(tmp_path):
+    path = write(tmp_path, "[grid]\nspacing = -0.2\n")
+    out = tmp_path / "out"
+    proc = subprocess.run([sys.executable, "-m", "solitons.cli", "relax", str(path), "--out", str(out)],
+                          capture_output=True, text=True, cwd=Path(__file__).parents[1])
+    assert proc.returncode == 2
+    lines = proc.stderr.strip().splitlines()
+    assert len(lines) == 1
+    assert str(path) in lines[0] and "grid.spacing" in lines[0] and "-0.2" in lines[0]
+    assert not out.exists()
