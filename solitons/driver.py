@@ -31,9 +31,10 @@ RESULT = "result.h5"
 SUMMARY = "summary.json"
 CHECKPOINT = "checkpoint.h5"
 
-# Peak bytes per grid point of one float64 value_and_grad, measured with
-# analysis/bench_memory.py; used to refuse grids that cannot fit.
-BYTES_PER_POINT = 1400
+# Peak growth of resident memory per grid point during an L-BFGS relaxation (float64,
+# memory 8), measured with analysis/bench_memory.py: 2174 (second order) and 2474 (fourth
+# order) bytes per point at 96^3.  Rounded up; used to refuse grids that cannot fit.
+BYTES_PER_POINT = 2600
 
 
 class RunError(RuntimeError):
