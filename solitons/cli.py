@@ -1,8 +1,9 @@
 """The ``solitons`` command.  Thin: parses arguments, calls the API, maps failures to
 exit codes.
 
-Exit codes: 0 converged; 1 finished without meeting the stopping rule (or charge lost);
-2 bad input (configuration, arguments, output directory); 3 energy became non-finite.
+Exit codes: 0 converged and stable; 1 finished without meeting the stopping rule (or
+charge lost); 2 bad input (configuration, arguments, files, output directory); 3 energy
+became non-finite.
 """
 
 from __future__ import annotations
@@ -33,6 +34,17 @@ def _parser() -> argparse.ArgumentParser:
         p.add_argument("--resume", action="store_true", help="continue from DIR/checkpoint.h5")
         p.add_argument("--overwrite", action="store_true", help="replace an existing result")
         p.add_argument("--quiet", action="store_true", help="no progress lines on stderr")
+        p.add_argument("--no-figures", dest="figures", action="store_false",
+                       help="skip the PNG figures at the end of the run")
+    show = sub.add_parser("show", help="write PNG figures of a result file")
+    show.add_argument("result", help="a result.h5 written by relax")
+    show.add_argument("--out", help="directory for the figures (default: next to the result)")
+    show.add_argument("--level", type=float, default=None,
+                      help="isosurface level of n3 (default -0.8, a tube around n = -e3)")
+    gallery = sub.add_parser("gallery", help="one figure with the isosurface of every result")
+    gallery.add_argument("results", nargs="+", help="result.h5 files")
+    gallery.add_argument("--out", required=True, help="PNG file to write")
+    gallery.add_argument("--level", type=float, default=None)
     return parser
 
 
@@ -40,30 +52,69 @@ def demo_config_text() -> str:
     return resources.files("solitons").joinpath("examples/demo.toml").read_text()
 
 
+def _figures(out: Path, level=None, stream=sys.stdout):
+    from solitons.io import read_result
+    from solitons.plots import DEFAULT_LEVEL, write_figures
+
+    paths = write_figures(read_result(out / "result.h5"), out,
+                          DEFAULT_LEVEL if level is None else level)
+    print("figures       " + "  ".join(str(p) for p in paths), file=stream)
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = _parser()
     args, extra = parser.parse_known_args(argv)
-    unknown = [item for item in extra if item.startswith("-") or "=" not in item]
-    if unknown:
-        parser.error(f"unrecognised arguments: {' '.join(unknown)}")
-    args.overrides = list(args.overrides) + extra
+    if args.command in ("relax", "demo"):
+        unknown = [item for item in extra if item.startswith("-") or "=" not in item]
+        if unknown:
+            parser.error(f"unrecognised arguments: {' '.join(unknown)}")
+        args.overrides = list(args.overrides) + extra
+    elif extra:
+        parser.error(f"unrecognised arguments: {' '.join(extra)}")
     # Imports after parsing so that --help answers without loading jax.
     from solitons.config import ConfigError, load
     from solitons.driver import RunError, relax, report
+    from solitons.io import ResultFileError
 
     try:
+        if args.command == "show":
+            from solitons.io import read_result
+            from solitons.plots import DEFAULT_LEVEL, write_figures
+
+            result = read_result(args.result)
+            out = Path(args.out) if args.out else Path(args.result).parent
+            paths = write_figures(result, out, DEFAULT_LEVEL if args.level is None else args.level)
+            print("\n".join(str(p) for p in paths))
+            return EXIT_OK
+        if args.command == "gallery":
+            from solitons.io import read_result
+            from solitons.plots import DEFAULT_LEVEL, plot_gallery
+
+            entries = []
+            for path in args.results:
+                result = read_result(path)
+                summary = result["summary"]
+                entries.append({"field": result["field"], "grid": result["grid"],
+                                "label": summary.get("label") or Path(path).parent.name,
+                                "hopf_charge": summary.get("hopf_charge"),
+                                "energy": summary.get("energy")})
+            print(plot_gallery(entries, args.out, level=DEFAULT_LEVEL if args.level is None else args.level))
+            return EXIT_OK
         if args.command == "demo":
             spec = load(None, args.overrides, text=demo_config_text())
             out = Path(args.out)
         else:
             spec = load(args.config, args.overrides)
             out = Path(args.out) if args.out else Path("runs") / Path(args.config).stem
-        summary = relax(spec, out, resume=args.resume, overwrite=args.overwrite or args.command == "demo",
+        summary = relax(spec, out, resume=args.resume,
+                        overwrite=args.overwrite or args.command == "demo",
                         stream=None if args.quiet else sys.stderr)
-    except (ConfigError, RunError) as error:
+    except (ConfigError, RunError, ResultFileError) as error:
         print(f"solitons: error: {error}", file=sys.stderr)
         return EXIT_INPUT
     report(summary, out)
+    if args.figures:
+        _figures(out)
     if summary["status"] == "non_finite":
         return EXIT_NON_FINITE
     if summary["verdict"] != "stable":

@@ -17,7 +17,7 @@ from solitons.diagnose import assess
 from solitons.energy import Model
 from solitons.grid import Grid
 from solitons.initial import add_noise, axial_map
-from solitons.io import read_checkpoint, write_checkpoint, write_json, write_result
+from solitons.io import read_checkpoint, write_checkpoint, write_json, write_result, write_xdmf
 from solitons.minimise import History, StoppingRule, minimise
 from solitons.terms import BUILTIN_TERMS, Term
 from solitons.topology import hopf_charge
@@ -28,6 +28,7 @@ NORMALISATION_TEXT = (
 )
 
 RESULT = "result.h5"
+XDMF = "result.xdmf"
 SUMMARY = "summary.json"
 CHECKPOINT = "checkpoint.h5"
 
@@ -35,6 +36,11 @@ CHECKPOINT = "checkpoint.h5"
 # memory 8), measured with analysis/bench_memory.py: 2174 (second order) and 2474 (fourth
 # order) bytes per point at 96^3.  Rounded up; used to refuse grids that cannot fit.
 BYTES_PER_POINT = 2600
+
+
+# Steps between the slower diagnostics kept in the history (virial, Hopf charge): each
+# costs about one energy evaluation plus a few FFTs.
+MONITOR_EVERY = 20
 
 
 class RunError(RuntimeError):
@@ -144,11 +150,15 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         history=history, start_step=start_step,
         progress=Progress(stream, relax_spec.progress_seconds),
         checkpoint=checkpoint, checkpoint_every=relax_spec.checkpoint_every,
+        monitor=lambda f: (model.virial(f)["total"], hopf_charge(f, grid)),
+        monitor_every=MONITOR_EVERY,
     )
     field = result.field
     energies = model.energies(field)
     virial = model.virial(field)
     charge = hopf_charge(field, grid)
+    if not result.history.monitor_step or result.history.monitor_step[-1] != result.steps:
+        result.history.append_monitor(result.steps, virial["total"], charge)
     density = model.energy_density(field)
     verdict = assess(field, grid, density, charge, spec.initial.expected_charge,
                      virial["total"], result.status)
@@ -178,6 +188,7 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     }
     write_result(out / RESULT, field, grid, density, summary, result.history.as_arrays(),
                  spec.text, __version__)
+    write_xdmf(out / XDMF, out / RESULT, grid)
     write_json(out / SUMMARY, summary)
     checkpoint_path.unlink(missing_ok=True)
     return summary
@@ -208,5 +219,6 @@ def report(summary: dict, out_dir: str | Path, stream: TextIO = sys.stdout) -> N
     ]
     for warning in summary["warnings"]:
         lines.append(f"WARNING       {warning}")
-    lines.append(f"files         {Path(out_dir) / RESULT}  {Path(out_dir) / SUMMARY}")
+    lines.append(f"files         {Path(out_dir) / RESULT}  {Path(out_dir) / SUMMARY}  "
+                 f"{Path(out_dir) / XDMF}")
     print("\n".join(lines), file=stream, flush=True)

@@ -1,4 +1,4 @@
-"""Result files: HDF5 result and checkpoint, summary JSON.
+"""Result files: HDF5 result and checkpoint, summary JSON, XDMF sidecar.
 
 Every write goes to a temporary name in the same directory and is renamed into place, so
 a reader never sees a half-written file and a killed run leaves its last complete
@@ -8,6 +8,7 @@ checkpoint.
 
     /field            float64 (Nx, Ny, Nz, 3), attrs spacing (3,), origin (3,), boundary
     /energy_density   float64 (Nx, Ny, Nz), normalised energy per unit volume
+    /coordinates      float64 (Nx, Ny, Nz, 3), site positions (for the XDMF sidecar)
     /history/{step, energy, force, seconds}
     attrs: config (TOML text), version, normalisation, energy, hopf_charge, virial,
            virial_per_axis, status, verdict, summary (the summary JSON text)
@@ -25,6 +26,10 @@ import h5py
 import numpy as np
 
 from solitons.grid import Grid
+
+
+class ResultFileError(OSError):
+    """A result or checkpoint file that cannot be read: names the file and the problem."""
 
 
 def _atomic_target(path: Path):
@@ -66,6 +71,7 @@ def write_result(path, field, grid: Grid, energy_density, summary: dict, history
         with h5py.File(tmp, "w") as h5:
             _write_field(h5, field, grid)
             h5.create_dataset("energy_density", data=np.asarray(energy_density, dtype=np.float64))
+            h5.create_dataset("coordinates", data=np.stack(grid.mesh(), axis=-1))
             _write_history(h5, history_arrays)
             terms = h5.create_group("terms")
             for name, value in summary["terms"].items():
@@ -94,6 +100,13 @@ def _grid_from(dataset) -> Grid:
 def read_result(path) -> dict:
     """Load ``result.h5`` into plain Python: field, grid, energy_density, history,
     terms, config, version and the summary dictionary."""
+    try:
+        return _read_result(path)
+    except (OSError, KeyError) as error:
+        raise ResultFileError(f"{path}: not a readable solitons result file ({error})") from None
+
+
+def _read_result(path) -> dict:
     with h5py.File(path, "r") as h5:
         return {
             "field": h5["field"][...],
@@ -131,3 +144,41 @@ def read_checkpoint(path) -> dict:
             "step": int(h5.attrs["step"]),
             "config": str(h5.attrs["config"]),
         }
+
+
+def write_xdmf(path, h5_path, grid: Grid) -> None:
+    """XDMF 3 sidecar for a result file, so ParaView and VisIt open it directly.
+
+    The field is stored x-slowest, (Nx, Ny, Nz, 3); a co-rectilinear XDMF mesh would read
+    the fastest array axis as x and mirror the picture (a mirror flips the handedness of
+    knots), so the sidecar names a structured mesh with explicit site coordinates
+    (/coordinates), which is unambiguous.  Attributes: n (vector), n3 and energy_density
+    (scalars)."""
+    nx, ny, nz = grid.shape
+    dims = f"{nx} {ny} {nz}"
+    name = Path(h5_path).name
+    text = f"""<?xml version="1.0" ?>
+<Xdmf Version="3.0">
+  <Domain>
+    <Grid Name="soliton" GridType="Uniform">
+      <Topology TopologyType="3DSMesh" Dimensions="{dims}"/>
+      <Geometry GeometryType="XYZ">
+        <DataItem Dimensions="{dims} 3" NumberType="Float" Precision="8" Format="HDF">{name}:/coordinates</DataItem>
+      </Geometry>
+      <Attribute Name="n" AttributeType="Vector" Center="Node">
+        <DataItem Dimensions="{dims} 3" NumberType="Float" Precision="8" Format="HDF">{name}:/field</DataItem>
+      </Attribute>
+      <Attribute Name="energy_density" AttributeType="Scalar" Center="Node">
+        <DataItem Dimensions="{dims}" NumberType="Float" Precision="8" Format="HDF">{name}:/energy_density</DataItem>
+      </Attribute>
+    </Grid>
+  </Domain>
+</Xdmf>
+"""
+    path = Path(path)
+    tmp = _atomic_target(path)
+    try:
+        tmp.write_text(text)
+        os.replace(tmp, path)
+    finally:
+        tmp.unlink(missing_ok=True)

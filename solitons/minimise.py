@@ -55,12 +55,16 @@ class StoppingRule:
 
 @dataclass
 class History:
-    """Per-step record: step index, energy, largest tangent force, wall seconds."""
+    """Per-step record (step index, energy, largest tangent force, wall seconds) and, every
+    few steps, the slower diagnostics (virial residual and Hopf charge) with their steps."""
 
     step: list = dataclass_field(default_factory=list)
     energy: list = dataclass_field(default_factory=list)
     force: list = dataclass_field(default_factory=list)
     seconds: list = dataclass_field(default_factory=list)
+    monitor_step: list = dataclass_field(default_factory=list)
+    virial: list = dataclass_field(default_factory=list)
+    hopf_charge: list = dataclass_field(default_factory=list)
 
     def append(self, step, energy, force, seconds):
         self.step.append(int(step))
@@ -68,12 +72,17 @@ class History:
         self.force.append(float(force))
         self.seconds.append(float(seconds))
 
+    def append_monitor(self, step, virial, hopf_charge):
+        self.monitor_step.append(int(step))
+        self.virial.append(float(virial))
+        self.hopf_charge.append(float(hopf_charge))
+
     def as_arrays(self) -> dict[str, np.ndarray]:
         return {k: np.asarray(v) for k, v in vars(self).items()}
 
     @classmethod
     def from_arrays(cls, arrays) -> History:
-        return cls(*(list(np.asarray(arrays[k]).tolist()) for k in ("step", "energy", "force", "seconds")))
+        return cls(**{k: list(np.asarray(arrays[k]).tolist()) for k in vars(cls()) if k in arrays})
 
 
 @dataclass
@@ -96,7 +105,10 @@ class MinimiseResult:
 class _Tracker:
     """Shared bookkeeping: history, stopping rule, progress, checkpoints."""
 
-    def __init__(self, model, rule, history, start_step, progress, checkpoint, checkpoint_every):
+    def __init__(self, model, rule, history, start_step, progress, checkpoint, checkpoint_every,
+                 monitor=None, monitor_every=0):
+        self.monitor = monitor
+        self.monitor_every = monitor_every
         self.model = model
         self.rule = rule
         self.history = history if history is not None else History()
@@ -122,6 +134,8 @@ class _Tracker:
         self.last_energy = energy
         if self.progress is not None:
             self.progress(self.step, energy, max_force, elapsed)
+        if self.monitor is not None and self.monitor_every and self.step % self.monitor_every == 0:
+            self.history.append_monitor(self.step, *self.monitor(field))
         if self.checkpoint is not None and self.checkpoint_every and self.step % self.checkpoint_every == 0:
             self.checkpoint(np.asarray(field), self.step, self.history)
         if max_force < self.rule.force_tol or self.quiet_steps >= self.rule.patience:
@@ -145,16 +159,21 @@ def minimise(
     checkpoint: Callable | None = None,
     checkpoint_every: int = 0,
     lbfgs_memory: int = 8,
+    monitor: Callable | None = None,
+    monitor_every: int = 0,
 ) -> MinimiseResult:
     """Relax ``field0`` (Nx, Ny, Nz, 3) with ``method``.
 
     time_step: for the flows, in units of the smallest spacing h (arrested Newton flow,
     default 0.07) or of h^2 (gradient flow, default 0.01).  progress(step, energy,
-    max_force, seconds) and checkpoint(field, step, history) are optional callbacks.
+    max_force, seconds) and checkpoint(field, step, history) are optional callbacks;
+    monitor(field) -> (virial, hopf_charge) is called every ``monitor_every`` steps and its
+    values kept in the history.
     """
     if method not in METHODS:
         raise ValueError(f"unknown method {method!r}; choose from {METHODS}")
-    tracker = _Tracker(model, rule, history, start_step, progress, checkpoint, checkpoint_every)
+    tracker = _Tracker(model, rule, history, start_step, progress, checkpoint, checkpoint_every,
+                       monitor, monitor_every)
     start = time.perf_counter()
     runner = {"lbfgs": _lbfgs, "arrested_newton": _arrested_newton,
               "gradient_flow": _gradient_flow, "scipy_lbfgs": _scipy_lbfgs}

@@ -1,0 +1,280 @@
+"""Figures of relaxed solitons (matplotlib, Agg backend; PNG files).
+
+Nothing here is imported by the numerical core; the driver and the ``show`` command call
+these functions at the edge.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+from matplotlib import colors  # noqa: E402
+from mpl_toolkits.mplot3d.art3d import Line3DCollection, Poly3DCollection  # noqa: E402
+from skimage.measure import marching_cubes  # noqa: E402
+
+from solitons.curves import preimage_chains, projection_basis, projection_crossings  # noqa: E402
+from solitons.grid import Grid  # noqa: E402
+
+DPI = 110
+DEFAULT_LEVEL = -0.8  # isosurface n3 = level: a tube around the position curve (n3 = -1)
+PROJECTION = (0.25, 0.15, 1.0)  # generic view direction for crossings
+
+
+def energy_centre(density: np.ndarray, grid: Grid) -> np.ndarray:
+    """Site index nearest to the energy-weighted centre."""
+    weights = np.clip(density, 0, None)
+    total = weights.sum()
+    if total == 0:
+        return np.array([n // 2 for n in grid.shape])
+    index = [np.arange(n) for n in grid.shape]
+    centre = [float((weights.sum(axis=tuple(a for a in range(3) if a != k)) * index[k]).sum() / total)
+              for k in range(3)]
+    return np.round(centre).astype(int)
+
+
+def _title_text(meta: dict) -> str:
+    parts = []
+    if meta.get("label"):
+        parts.append(meta["label"])
+    if meta.get("hopf_charge") is not None:
+        parts.append(f"Q = {meta['hopf_charge']:.3f}")
+    if meta.get("energy") is not None:
+        parts.append(f"E = {meta['energy']:.4f}")
+    return "   ".join(parts)
+
+
+def plot_slices(field, grid: Grid, density, path, meta: dict | None = None) -> Path:
+    """n3 and energy density on the three coordinate planes through the energy centre."""
+    meta = meta or {}
+    centre = energy_centre(density, grid)
+    axes_coords = grid.axes()
+    names = "xyz"
+    fig, axes = plt.subplots(2, 3, figsize=(13, 8), dpi=DPI, constrained_layout=True)
+    emax = float(np.max(density)) if np.max(density) > 0 else 1.0
+    for col, normal in enumerate(range(3)):
+        others = [a for a in range(3) if a != normal]
+        index = [slice(None)] * 3
+        index[normal] = centre[normal]
+        extent = [axes_coords[others[0]][0], axes_coords[others[0]][-1],
+                  axes_coords[others[1]][0], axes_coords[others[1]][-1]]
+        plane = f"{names[normal]} = {axes_coords[normal][centre[normal]]:.2f}"
+        for row, (values, cmap, norm, label) in enumerate((
+            (field[tuple(index)][..., 2], "RdBu_r", colors.Normalize(-1, 1), "$n_3$"),
+            (density[tuple(index)], "magma", colors.Normalize(0, emax), "energy density"),
+        )):
+            ax = axes[row, col]
+            image = ax.imshow(values.T, origin="lower", extent=extent, cmap=cmap, norm=norm,
+                              interpolation="nearest")
+            if row == 0:
+                ax.contour(axes_coords[others[0]], axes_coords[others[1]], values.T,
+                           levels=[0.0], colors="k", linewidths=0.6)
+            ax.set_xlabel(names[others[0]])
+            ax.set_ylabel(names[others[1]])
+            ax.set_title(f"{label} on {plane}")
+            fig.colorbar(image, ax=ax, shrink=0.85)
+    spacing = ", ".join(f"{h:g}" for h in grid.spacing)
+    fig.suptitle(f"{_title_text(meta)}    grid {'x'.join(map(str, grid.shape))}, h = {spacing}"
+                 f"  (model length units; black line: $n_3 = 0$)")
+    return _save(fig, path)
+
+
+def isosurface_mesh(field, grid: Grid, level: float = DEFAULT_LEVEL):
+    """Marching-cubes mesh of n3 = level: vertices (model coordinates), faces, and the
+    phase of n1 + i n2 at every vertex."""
+    n3 = field[..., 2]
+    if not (n3.min() < level < n3.max()):
+        return np.zeros((0, 3)), np.zeros((0, 3), int), np.zeros(0)
+    verts, faces, _, _ = marching_cubes(n3, level)
+    from scipy.ndimage import map_coordinates
+
+    n1 = map_coordinates(field[..., 0], verts.T, order=1)
+    n2 = map_coordinates(field[..., 1], verts.T, order=1)
+    coords = verts * np.asarray(grid.spacing) + np.asarray(grid.origin)
+    return coords, faces, np.arctan2(n2, n1)
+
+
+def euler_characteristic(faces: np.ndarray) -> tuple[int, bool, int]:
+    """(V - E + F, closed, components) of a triangle mesh; closed when every edge has
+    exactly two faces."""
+    if len(faces) == 0:
+        return 0, True, 0
+    edges = np.sort(np.concatenate([faces[:, [0, 1]], faces[:, [1, 2]], faces[:, [2, 0]]]), axis=1)
+    unique, counts = np.unique(edges, axis=0, return_counts=True)
+    vertices = np.unique(faces)
+    # connected components by union-find over edges
+    parent = {int(v): int(v) for v in vertices}
+
+    def find(a):
+        while parent[a] != a:
+            parent[a] = parent[parent[a]]
+            a = parent[a]
+        return a
+
+    for a, b in unique:
+        ra, rb = find(int(a)), find(int(b))
+        if ra != rb:
+            parent[ra] = rb
+    components = len({find(int(v)) for v in vertices})
+    return len(vertices) - len(unique) + len(faces), bool(np.all(counts == 2)), components
+
+
+def _shade(verts, faces, phase_at_faces):
+    normals = np.cross(verts[faces[:, 1]] - verts[faces[:, 0]], verts[faces[:, 2]] - verts[faces[:, 0]])
+    normals /= np.maximum(np.linalg.norm(normals, axis=1, keepdims=True), 1e-300)
+    light = np.array([0.4, -0.5, 0.75])
+    light /= np.linalg.norm(light)
+    brightness = 0.45 + 0.55 * np.abs(normals @ light)
+    rgba = plt.get_cmap("hsv")((phase_at_faces + np.pi) / (2 * np.pi))
+    rgba[:, :3] *= brightness[:, None]
+    return rgba
+
+
+def _set_equal_3d(ax, points):
+    centre = 0.5 * (points.max(axis=0) + points.min(axis=0))
+    radius = 0.55 * float(np.max(points.max(axis=0) - points.min(axis=0))) or 1.0
+    for setter, c in zip((ax.set_xlim, ax.set_ylim, ax.set_zlim), centre):
+        setter(c - radius, c + radius)
+    ax.set_box_aspect((1, 1, 1))
+
+
+def plot_isosurface(field, grid: Grid, path, meta: dict | None = None,
+                    level: float = DEFAULT_LEVEL) -> Path:
+    """Shaded isosurface n3 = level coloured by the phase of n1 + i n2."""
+    meta = meta or {}
+    verts, faces, phase = isosurface_mesh(field, grid, level)
+    fig = plt.figure(figsize=(8, 7.5), dpi=DPI)
+    ax = fig.add_subplot(projection="3d")
+    if len(faces):
+        face_phase = np.angle(np.exp(1j * phase[faces]).mean(axis=1))
+        poly = Poly3DCollection(verts[faces], facecolors=_shade(verts, faces, face_phase),
+                                edgecolor="none")
+        ax.add_collection3d(poly)
+        _set_equal_3d(ax, verts)
+        mappable = plt.cm.ScalarMappable(cmap="hsv", norm=colors.Normalize(-np.pi, np.pi))
+        bar = fig.colorbar(mappable, ax=ax, shrink=0.6, pad=0.08)
+        bar.set_label("phase of $n_1 + i n_2$")
+        bar.set_ticks([-np.pi, 0, np.pi], labels=[r"$-\pi$", "0", r"$\pi$"])
+    else:
+        ax.text2D(0.5, 0.5, f"no isosurface n3 = {level}", transform=ax.transAxes, ha="center")
+    ax.set_xlabel("x")
+    ax.set_ylabel("y")
+    ax.set_zlabel("z")
+    ax.view_init(elev=35, azim=-60)
+    ax.set_title(f"{_title_text(meta)}\nisosurface $n_3 = {level}$")
+    return _save(fig, path)
+
+
+def plot_curves(field, grid: Grid, path, meta: dict | None = None, direction=PROJECTION) -> Path:
+    """Position curves (preimage of -e3) in 3D and their projection with crossings."""
+    meta = meta or {}
+    chains = preimage_chains(field, grid)
+    fig = plt.figure(figsize=(13, 6), dpi=DPI)
+    ax3 = fig.add_subplot(1, 2, 1, projection="3d")
+    ax2 = fig.add_subplot(1, 2, 2)
+    palette = plt.get_cmap("tab10")
+    u, v, _ = projection_basis(direction)
+    all_points = []
+    for index, (points, closed) in enumerate(chains):
+        loop = np.vstack([points, points[:1]]) if closed else points
+        colour = palette(index % 10)
+        ax3.add_collection3d(Line3DCollection([loop], colors=[colour], linewidths=2.5))
+        ax2.plot(loop @ u, loop @ v, color=colour, lw=2,
+                 label=f"curve {index + 1}{'' if closed else ' (open: cut by the box)'}")
+        all_points.append(points)
+    closed_curves = [p for p, c in chains if c]
+    crossings = projection_crossings(closed_curves, direction)
+    for point, over, under in crossings:
+        ax2.plot(*point, "o", ms=9, mfc="white", mec="k", zorder=5)
+    if all_points:
+        _set_equal_3d(ax3, np.vstack(all_points))
+        ax2.legend(loc="upper right", fontsize=8)
+    else:
+        ax2.text(0.5, 0.5, "no position curve found", transform=ax2.transAxes, ha="center")
+    ax3.set_xlabel("x")
+    ax3.set_ylabel("y")
+    ax3.set_zlabel("z")
+    ax3.set_title("position curves ($n = -e_3$)")
+    ax2.set_aspect("equal")
+    ax2.set_xlabel("u")
+    ax2.set_ylabel("v")
+    ax2.set_title(f"projection along {tuple(round(c, 2) for c in direction)}: "
+                  f"{len(crossings)} crossings (circles)")
+    fig.suptitle(_title_text(meta))
+    return _save(fig, path)
+
+
+def plot_history(history: dict, path, meta: dict | None = None) -> Path:
+    """Energy above its final value, largest force, virial and charge against step."""
+    meta = meta or {}
+    step = np.asarray(history["step"])
+    energy = np.asarray(history["energy"])
+    force = np.asarray(history["force"])
+    fig, axes = plt.subplots(2, 2, figsize=(12, 8), dpi=DPI, constrained_layout=True)
+    if len(step):
+        excess = energy - energy.min()
+        positive = excess > 0
+        axes[0, 0].semilogy(step[positive], excess[positive], lw=1.2)
+        axes[0, 1].semilogy(step, force, lw=1.2, color="tab:red")
+    axes[0, 0].set_title(f"energy above final ({energy.min():.6f})" if len(step) else "energy")
+    axes[0, 1].set_title("largest tangent force (Euler-Lagrange units)")
+    monitor = np.asarray(history.get("monitor_step", []))
+    if len(monitor):
+        axes[1, 0].plot(monitor, history["virial"], "o-", ms=3)
+        axes[1, 0].axhline(0, color="k", lw=0.6)
+        axes[1, 1].plot(monitor, history["hopf_charge"], "o-", ms=3, color="tab:green")
+    axes[1, 0].set_title("virial residual $\\sum_a h_a\\,\\partial E/\\partial h_a / E$")
+    axes[1, 1].set_title("Hopf charge")
+    for ax in axes.flat:
+        ax.set_xlabel("step")
+        ax.grid(alpha=0.3)
+    fig.suptitle(f"relaxation history   {_title_text(meta)}")
+    return _save(fig, path)
+
+
+def plot_gallery(entries: list[dict], path, columns: int = 4, level: float = DEFAULT_LEVEL) -> Path:
+    """One panel per solution: isosurface, with Q, label and E.  ``entries`` hold
+    ``field``, ``grid`` and the keys used in titles (label, hopf_charge, energy)."""
+    rows = max(1, -(-len(entries) // columns))
+    fig = plt.figure(figsize=(4 * columns, 4 * rows), dpi=DPI)
+    for k, entry in enumerate(entries):
+        ax = fig.add_subplot(rows, columns, k + 1, projection="3d")
+        verts, faces, phase = isosurface_mesh(entry["field"], entry["grid"], level)
+        if len(faces):
+            face_phase = np.angle(np.exp(1j * phase[faces]).mean(axis=1))
+            ax.add_collection3d(Poly3DCollection(verts[faces], facecolors=_shade(verts, faces, face_phase),
+                                                 edgecolor="none"))
+            _set_equal_3d(ax, verts)
+        ax.set_axis_off()
+        ax.set_title(_title_text(entry), fontsize=9)
+    fig.suptitle(f"isosurfaces $n_3 = {level}$, coloured by the phase of $n_1 + i n_2$")
+    return _save(fig, path)
+
+
+def _save(fig, path) -> Path:
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.tmp.png")
+    fig.savefig(tmp)
+    plt.close(fig)
+    tmp.replace(path)
+    return path
+
+
+def write_figures(result: dict, out_dir, level: float = DEFAULT_LEVEL) -> list[Path]:
+    """All single-run figures of a loaded result (see `solitons.io.read_result`)."""
+    out = Path(out_dir)
+    summary = result["summary"]
+    meta = {"label": summary.get("label"), "hopf_charge": summary.get("hopf_charge"),
+            "energy": summary.get("energy")}
+    field, grid = result["field"], result["grid"]
+    return [
+        plot_slices(field, grid, result["energy_density"], out / "slices.png", meta),
+        plot_isosurface(field, grid, out / "isosurface.png", meta, level),
+        plot_curves(field, grid, out / "curves.png", meta),
+        plot_history(result["history"], out / "history.png", meta),
+    ]
