@@ -86,8 +86,9 @@ def assess(field, grid: Grid, energy_density, hopf_charge: float, expected_charg
         warnings.append(f"Hopf charge {hopf_charge:.4f} is far from an integer: the lattice "
                         "does not resolve the field")
     if fraction > BOUNDARY_FRACTION_LIMIT:
-        warnings.append(f"{100 * fraction:.2f} % of the energy sits on the box border: the "
-                        "soliton touches the box; enlarge it")
+        warnings.append(f"{100 * fraction:.2f} % of the energy sits on the two outermost layers "
+                        "of sites: the soliton touches the box, which squeezes it; enlarge "
+                        "the box for sub-per-cent energies")
     if abs(virial) > VIRIAL_LIMIT:
         warnings.append(f"virial residual {virial:+.3f}: not a stationary point of the "
                         "infinite-space energy (box too small, lattice too coarse, or unrelaxed)")

@@ -42,12 +42,14 @@ NORMALISATION = 1.0 / (32.0 * np.sqrt(2.0) * np.pi**2)
 SCHEMES = {"second": 1, "fourth": 2}  # scheme -> stencil reach (padding width)
 
 
-def _octant_average(density, centre, forward, backward):
+def _octant_average(term, centre, forward, backward, lap):
+    parameters = term.parameter_values()
     total = 0.0
     for sx in (forward[0], backward[0]):
         for sy in (forward[1], backward[1]):
             for sz in (forward[2], backward[2]):
-                total = total + density(centre, jnp.stack((sx, sy, sz), axis=-2))
+                d = jnp.stack((sx, sy, sz), axis=-2)
+                total = total + term.kind.density(centre, d, lap, **parameters)
     return total / 8.0
 
 
@@ -55,12 +57,18 @@ def _site_densities(field, spacing, grid: Grid, terms: tuple[Term, ...], reach: 
     padded = pad(field, grid.boundary, reach)
     centre = shifted(padded, reach, grid.shape, 0, 0)
     forward, backward = one_sided_differences(padded, reach, grid.shape, spacing, reach)
+    lap = None
+    if any(term.kind.needs_laplacian for term in terms):
+        # (n(x + r) - 2 n(x) + n(x - r)) / (r h)^2, summed over axes
+        lap = sum((f - b) / (reach * spacing[axis])
+                  for axis, (f, b) in enumerate(zip(forward, backward)))
     densities = []
     for term in terms:
         if term.kind.lattice is not None and not generic:
-            densities.append(term.kind.lattice(forward, backward, centre))
+            densities.append(term.kind.lattice(forward, backward, centre, lap,
+                                               **term.parameter_values()))
         else:
-            densities.append(_octant_average(term.kind.density, centre, forward, backward))
+            densities.append(_octant_average(term, centre, forward, backward, lap))
     return densities
 
 

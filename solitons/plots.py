@@ -226,9 +226,16 @@ def plot_history(history: dict, path, meta: dict | None = None) -> Path:
     if len(monitor):
         axes[1, 0].plot(monitor, history["virial"], "o-", ms=3)
         axes[1, 0].axhline(0, color="k", lw=0.6)
-        axes[1, 1].plot(monitor, history["hopf_charge"], "o-", ms=3, color="tab:green")
-    axes[1, 0].set_title("virial residual $\\sum_a h_a\\,\\partial E/\\partial h_a / E$")
-    axes[1, 1].set_title("Hopf charge")
+        charge = np.asarray(history["hopf_charge"])
+        axes[1, 1].plot(monitor, charge, "o-", ms=3, color="tab:green")
+        axes[1, 1].ticklabel_format(axis="y", useOffset=False)
+        spread = max(float(np.ptp(charge)), 1e-3)
+        middle = 0.5 * (charge.max() + charge.min())
+        axes[1, 1].set_ylim(middle - 0.75 * spread, middle + 0.75 * spread)
+        axes[1, 1].set_title(f"Hopf charge (final {charge[-1]:.6f})")
+    else:
+        axes[1, 1].set_title("Hopf charge")
+    axes[1, 0].set_title("virial residual  (sum over axes of h dE/dh) / E")
     for ax in axes.flat:
         ax.set_xlabel("step")
         ax.grid(alpha=0.3)

@@ -67,7 +67,7 @@ def test_gradient_flow_descends():
 def test_non_finite_energy_stops_and_keeps_last_finite_state():
     """A density that is NaN below n3 = 0.9 while its minimum pulls n3 down: the run must
     stop with status non_finite and return a finite field."""
-    def broken(n, d):
+    def broken(n, d, lap=None):
         return jnp.sqrt(n[..., 2] - 0.9) + 0.0 * jnp.sum(d, axis=(-2, -1))
 
     grid = Grid.centred(12, 0.5, "periodic")
