@@ -75,6 +75,7 @@ def main(argv: list[str] | None = None) -> int:
     from solitons.config import ConfigError, load
     from solitons.driver import RunError, relax, report
     from solitons.io import ResultFileError
+    from solitons.userterms import UserTermError
 
     try:
         if args.command == "show":
@@ -109,7 +110,7 @@ def main(argv: list[str] | None = None) -> int:
         summary = relax(spec, out, resume=args.resume,
                         overwrite=args.overwrite or args.command == "demo",
                         stream=None if args.quiet else sys.stderr)
-    except (ConfigError, RunError, ResultFileError) as error:
+    except (ConfigError, RunError, ResultFileError, UserTermError) as error:
         print(f"solitons: error: {error}", file=sys.stderr)
         return EXIT_INPUT
     report(summary, out)

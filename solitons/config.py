@@ -31,8 +31,9 @@ DEFAULTS: dict[str, Any] = {
               "progress_seconds": 5.0},
 }
 
-# key -> (type description, checker); checkers return an error string or None
 _TERM_KEYS = ("kind", "coupling")
+_USER_TERM_KEYS = ("file", "function", "derivatives", "laplacian", "parameters")
+USER_KIND = "user"
 
 
 class ConfigError(ValueError):
@@ -64,6 +65,11 @@ class TermSpec:
     name: str
     kind: str
     coupling: float
+    parameters: tuple[tuple[str, float], ...] = ()
+    file: str | None = None  # user terms: absolute path of the Python file
+    function: str | None = None
+    derivatives: int | None = None
+    laplacian: bool = False
 
 
 @dataclass(frozen=True)
@@ -171,10 +177,6 @@ def _merge_file(merged: dict, data: dict, source: str, sources: dict):
                 key = f"terms.{name}"
                 if not isinstance(term, dict):
                     raise ConfigError(source, key, term, "must be a table with kind and coupling")
-                for sub in term:
-                    if sub not in _TERM_KEYS:
-                        raise ConfigError(source, f"{key}.{sub}", term[sub],
-                                          f"unknown key; expected {', '.join(_TERM_KEYS)}")
                 merged["terms"][name] = dict(term)
                 for sub in term:
                     sources[f"{key}.{sub}"] = source
@@ -207,8 +209,6 @@ def _apply_override(merged: dict, key: str, value: Any, sources: dict):
     source = "command line"
     if parts[0] == "terms" and len(parts) == 3:
         _, name, sub = parts
-        if sub not in _TERM_KEYS:
-            raise ConfigError(source, key, value, f"unknown key; expected {', '.join(_TERM_KEYS)}")
         merged["terms"].setdefault(name, {})[sub] = value
     elif len(parts) == 2 and parts[0] in DEFAULTS and parts[0] != "terms":
         if parts[1] not in DEFAULTS[parts[0]]:
@@ -220,8 +220,11 @@ def _apply_override(merged: dict, key: str, value: Any, sources: dict):
     sources[key] = source
 
 
-def load(path: str | Path | None, overrides: list[str] = (), text: str | None = None) -> RunSpec:
-    """Read, merge and validate a configuration (``text`` instead of a file if given)."""
+def load(path: str | Path | None, overrides: list[str] = (), text: str | None = None,
+         base_dir: str | Path | None = None) -> RunSpec:
+    """Read, merge and validate a configuration (``text`` instead of a file if given).
+    Relative paths of user-term files are taken from ``base_dir`` (default: the config
+    file's folder, or the working directory)."""
     source = str(path) if path is not None else "built-in example"
     if text is None:
         try:
@@ -238,10 +241,62 @@ def load(path: str | Path | None, overrides: list[str] = (), text: str | None = 
     for item in overrides:
         key, value = parse_override(item)
         _apply_override(merged, key, value, sources)
-    return validate(merged, sources)
+    if base_dir is None:
+        base_dir = Path(path).parent if path is not None else Path.cwd()
+    return validate(merged, sources, Path(base_dir))
 
 
-def validate(merged: dict, sources: dict) -> RunSpec:
+def _term_spec(c: _Checker, name: str, term: dict, base_dir: Path) -> TermSpec:
+    
+    key = f"terms.{name}"
+    kind = term.get("kind", name)
+    if not isinstance(kind, str) or (kind not in BUILTIN_TERMS and kind != USER_KIND):
+        c.fail(f"{key}.kind" if "kind" in term else key, kind,
+               f"unknown term kind; built-in kinds: {', '.join(BUILTIN_TERMS)}, or {USER_KIND!r}")
+    coupling = term.get("coupling", 1.0)
+    if not _is_real(coupling):
+        c.fail(f"{key}.coupling", coupling, "must be a finite number")
+    if kind != USER_KIND:
+        allowed = dict(BUILTIN_TERMS[kind].parameters)
+        parameters = []
+        for sub, value in term.items():
+            if sub in _TERM_KEYS:
+                continue
+            if sub not in allowed:
+                expected = ", ".join(list(_TERM_KEYS) + list(allowed))
+                c.fail(f"{key}.{sub}", value, f"unknown key for a {kind} term; expected {expected}")
+            if not _is_real(value):
+                c.fail(f"{key}.{sub}", value, "must be a finite number")
+            parameters.append((sub, float(value)))
+        if kind == "potential" and dict(parameters).get("power", 1.0) < 1.0:
+            c.fail(f"{key}.power", dict(parameters)["power"], "must be at least 1 (smooth at the vacuum)")
+        return TermSpec(name, kind, float(coupling), tuple(sorted(parameters)))
+    for sub, value in term.items():
+        if sub not in _TERM_KEYS + _USER_TERM_KEYS:
+            c.fail(f"{key}.{sub}", value,
+                   f"unknown key for a user term; expected {', '.join(_TERM_KEYS + _USER_TERM_KEYS)}")
+    file = term.get("file")
+    if not isinstance(file, str) or not file:
+        c.fail(f"{key}.file", file, "a user term needs the path of its Python file")
+    function = term.get("function", "density")
+    if not isinstance(function, str) or not function.isidentifier():
+        c.fail(f"{key}.function", function, "must be the name of a Python function")
+    derivatives = term.get("derivatives")
+    if derivatives is not None and (not _is_int(derivatives) or derivatives < 0):
+        c.fail(f"{key}.derivatives", derivatives, "must be a non-negative integer (Derrick weight)")
+    laplacian = term.get("laplacian", False)
+    if not isinstance(laplacian, bool):
+        c.fail(f"{key}.laplacian", laplacian, "must be true or false")
+    parameters = term.get("parameters", {})
+    if not isinstance(parameters, dict) or not all(_is_real(v) for v in parameters.values()):
+        c.fail(f"{key}.parameters", parameters, "must be a table of numbers")
+    resolved = Path(file) if Path(file).is_absolute() else (base_dir / file)
+    return TermSpec(name, USER_KIND, float(coupling),
+                    tuple(sorted((k, float(v)) for k, v in parameters.items())),
+                    str(resolved.resolve()), function, derivatives, laplacian)
+
+
+def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec:
     c = _Checker(merged, sources)
     grid = GridSpec(
         points=c.triple("grid", "points", "int", positive=True),
@@ -256,16 +311,7 @@ def validate(merged: dict, sources: dict) -> RunSpec:
 
     if not merged["terms"]:
         c.fail("terms", {}, "at least one energy term is needed")
-    terms = []
-    for name, term in merged["terms"].items():
-        kind = term.get("kind", name)
-        if not isinstance(kind, str) or kind not in BUILTIN_TERMS:
-            c.fail(f"terms.{name}.kind" if "kind" in term else f"terms.{name}", kind,
-                   f"unknown term kind; built-in kinds: {', '.join(BUILTIN_TERMS)}")
-        coupling = term.get("coupling", 1.0)
-        if not _is_real(coupling):
-            c.fail(f"terms.{name}.coupling", coupling, "must be a finite number")
-        terms.append(TermSpec(name, kind, float(coupling)))
+    terms = tuple(_term_spec(c, name, term, base_dir) for name, term in merged["terms"].items())
 
     initial = InitialSpec(
         family=c.choice("initial", "family", FAMILIES),
@@ -286,7 +332,7 @@ def validate(merged: dict, sources: dict) -> RunSpec:
         checkpoint_every=c.integer("relax", "checkpoint_every", minimum=0),
         progress_seconds=c.real("relax", "progress_seconds", non_negative=True),
     )
-    return RunSpec(grid, tuple(terms), initial, relax, dumps(merged))
+    return RunSpec(grid, terms, initial, relax, dumps(merged))
 
 
 def _toml_value(value: Any) -> str:
@@ -310,6 +356,10 @@ def dumps(merged: dict) -> str:
         lines.append("")
     for name, term in merged["terms"].items():
         lines.append(f"[terms.{name}]")
-        lines += [f"{k} = {_toml_value(v)}" for k, v in term.items()]
+        lines += [f"{k} = {_toml_value(v)}" for k, v in term.items() if not isinstance(v, dict)]
+        for k, v in term.items():
+            if isinstance(v, dict):
+                inner = ", ".join(f"{kk} = {_toml_value(vv)}" for kk, vv in v.items())
+                lines.append(f"{k} = {{ {inner} }}")
         lines.append("")
     return "\n".join(lines)

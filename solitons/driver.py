@@ -12,7 +12,7 @@ from typing import Callable, TextIO
 import numpy as np
 
 from solitons import __version__
-from solitons.config import RunSpec
+from solitons.config import USER_KIND, RunSpec
 from solitons.diagnose import assess
 from solitons.energy import Model
 from solitons.grid import Grid
@@ -21,6 +21,7 @@ from solitons.io import read_checkpoint, write_checkpoint, write_json, write_res
 from solitons.minimise import History, StoppingRule, minimise
 from solitons.terms import BUILTIN_TERMS, Term
 from solitons.topology import hopf_charge
+from solitons.userterms import load_user_term
 
 NORMALISATION_TEXT = (
     "E = 1/(32 sqrt(2) pi^2) * sum_terms coupling * Int density d^3x; with dirichlet and "
@@ -51,9 +52,21 @@ def make_grid(spec: RunSpec) -> Grid:
     return Grid.centred(spec.grid.points, spec.grid.spacing, spec.grid.boundary)
 
 
+def make_terms(spec: RunSpec) -> tuple[Term, ...]:
+    """Terms of the model; user terms are imported and validated here (UserTermError)."""
+    terms = []
+    for t in spec.terms:
+        if t.kind == USER_KIND:
+            kind, _ = load_user_term(t.file, t.function, t.derivatives, t.laplacian,
+                                     dict(t.parameters), name=t.name)
+            terms.append(Term(t.name, kind, t.coupling))
+        else:
+            terms.append(Term(t.name, BUILTIN_TERMS[t.kind], t.coupling, t.parameters))
+    return tuple(terms)
+
+
 def make_model(spec: RunSpec, grid: Grid) -> Model:
-    terms = tuple(Term(t.name, BUILTIN_TERMS[t.kind], t.coupling) for t in spec.terms)
-    return Model(terms, grid, spec.grid.scheme)
+    return Model(make_terms(spec), grid, spec.grid.scheme)
 
 
 def make_initial_field(spec: RunSpec, grid: Grid) -> np.ndarray:
