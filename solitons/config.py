@@ -28,7 +28,7 @@ DEFAULTS: dict[str, Any] = {
                 "noise": 0.0, "seed": 0},
     "relax": {"method": "lbfgs", "max_steps": 4000, "force_tol": 1e-3, "energy_tol": 1e-10,
               "patience": 20, "time_step": 0.0, "checkpoint_every": 100,
-              "progress_seconds": 5.0},
+              "progress_seconds": 5.0, "hessian_modes": 0},
 }
 
 _TERM_KEYS = ("kind", "coupling")
@@ -97,6 +97,7 @@ class RelaxSpec:
     time_step: float
     checkpoint_every: int
     progress_seconds: float
+    hessian_modes: int = 0
 
 
 @dataclass(frozen=True)
@@ -331,6 +332,7 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
         time_step=c.real("relax", "time_step", non_negative=True),
         checkpoint_every=c.integer("relax", "checkpoint_every", minimum=0),
         progress_seconds=c.real("relax", "progress_seconds", non_negative=True),
+        hessian_modes=c.integer("relax", "hessian_modes", minimum=0),
     )
     return RunSpec(grid, terms, initial, relax, dumps(merged))
 

@@ -13,13 +13,14 @@ import numpy as np
 
 from solitons import __version__
 from solitons.config import USER_KIND, RunSpec
-from solitons.diagnose import assess
+from solitons.diagnose import assess, snapshot
 from solitons.energy import Model
 from solitons.grid import Grid
 from solitons.initial import add_noise, axial_map
 from solitons.io import read_checkpoint, write_checkpoint, write_json, write_result, write_xdmf
 from solitons.minimise import History, StoppingRule, minimise
 from solitons.terms import BUILTIN_TERMS, Term
+from solitons.stability import lowest_modes, probe_density
 from solitons.topology import hopf_charge
 from solitons.userterms import load_user_term
 
@@ -75,6 +76,15 @@ def make_initial_field(spec: RunSpec, grid: Grid) -> np.ndarray:
     if grid.boundary == "fixed":
         field = field * grid.free_mask() + np.array([0.0, 0.0, 1.0]) * (1.0 - grid.free_mask())
     return add_noise(field, grid, init.noise, init.seed)
+
+
+def monitor_values(model: Model, field) -> dict:
+    """The slow diagnostics kept in the history every MONITOR_EVERY steps."""
+    density = model.energy_density(field)
+    values = snapshot(np.asarray(field), model.grid, density)
+    values["virial"] = model.virial(field)["total"]
+    values["hopf_charge"] = hopf_charge(field, model.grid)
+    return values
 
 
 def config_hash(text: str) -> str:
@@ -147,6 +157,12 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     def checkpoint(field, step, hist):
         write_checkpoint(checkpoint_path, field, grid, step, hist.as_arrays(), spec.text)
 
+    probe = probe_density(model.terms)
+    if probe["negative"] and stream is not None:
+        print("WARNING: the energy density is negative for some local fields "
+              f"(quartic part a = {probe['quartic']['a']:g}, b = {probe['quartic']['b']:g}; "
+              "bounded needs b >= 0 and a + 4b >= 0): the energy may not be bounded below",
+              file=stream, flush=True)
     relax_spec = spec.relax
     rule = StoppingRule(relax_spec.max_steps, relax_spec.force_tol, relax_spec.energy_tol,
                         relax_spec.patience)
@@ -163,7 +179,7 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         history=history, start_step=start_step,
         progress=Progress(stream, relax_spec.progress_seconds),
         checkpoint=checkpoint, checkpoint_every=relax_spec.checkpoint_every,
-        monitor=lambda f: (model.virial(f)["total"], hopf_charge(f, grid)),
+        monitor=lambda f: monitor_values(model, f),
         monitor_every=MONITOR_EVERY,
     )
     field = result.field
@@ -171,10 +187,16 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     virial = model.virial(field)
     charge = hopf_charge(field, grid)
     if not result.history.monitor_step or result.history.monitor_step[-1] != result.steps:
-        result.history.append_monitor(result.steps, virial["total"], charge)
+        result.history.append_monitor(result.steps, monitor_values(model, field))
     density = model.energy_density(field)
+    hessian = None
+    if spec.relax.hessian_modes and result.converged:
+        if stream is not None:
+            print(f"  Hessian: lowest {spec.relax.hessian_modes} modes by Lanczos ...", file=stream, flush=True)
+        hessian = lowest_modes(model, field, spec.relax.hessian_modes)
     verdict = assess(field, grid, density, charge, spec.initial.expected_charge,
-                     virial["total"], result.status)
+                     virial["total"], result.status, result.history.as_arrays(),
+                     result.history.energy, probe["negative"], hessian)
     summary = {
         "energy": float(sum(energies.values())),
         "terms": energies,
@@ -191,6 +213,7 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
                  "origin": list(grid.origin), "boundary": grid.boundary,
                  "scheme": spec.grid.scheme, "box_side": list(grid.side)},
         "method": relax_spec.method,
+        "bounded_below_probe": probe,
         "verdict": verdict["verdict"],
         "evidence": verdict["evidence"],
         "warnings": verdict["warnings"],

@@ -56,7 +56,8 @@ class StoppingRule:
 @dataclass
 class History:
     """Per-step record (step index, energy, largest tangent force, wall seconds) and, every
-    few steps, the slower diagnostics (virial residual and Hopf charge) with their steps."""
+    few steps, the slower diagnostics with their steps: virial residual, Hopf charge,
+    size (RMS radius of the energy), core thickness and boundary energy fraction."""
 
     step: list = dataclass_field(default_factory=list)
     energy: list = dataclass_field(default_factory=list)
@@ -65,6 +66,9 @@ class History:
     monitor_step: list = dataclass_field(default_factory=list)
     virial: list = dataclass_field(default_factory=list)
     hopf_charge: list = dataclass_field(default_factory=list)
+    size: list = dataclass_field(default_factory=list)
+    thickness: list = dataclass_field(default_factory=list)
+    boundary_fraction: list = dataclass_field(default_factory=list)
 
     def append(self, step, energy, force, seconds):
         self.step.append(int(step))
@@ -72,10 +76,11 @@ class History:
         self.force.append(float(force))
         self.seconds.append(float(seconds))
 
-    def append_monitor(self, step, virial, hopf_charge):
+    def append_monitor(self, step, values: dict):
+        """values: virial, hopf_charge, size, thickness, boundary_fraction."""
         self.monitor_step.append(int(step))
-        self.virial.append(float(virial))
-        self.hopf_charge.append(float(hopf_charge))
+        for key in ("virial", "hopf_charge", "size", "thickness", "boundary_fraction"):
+            getattr(self, key).append(float(values[key]))
 
     def as_arrays(self) -> dict[str, np.ndarray]:
         return {k: np.asarray(v) for k, v in vars(self).items()}
@@ -135,7 +140,7 @@ class _Tracker:
         if self.progress is not None:
             self.progress(self.step, energy, max_force, elapsed)
         if self.monitor is not None and self.monitor_every and self.step % self.monitor_every == 0:
-            self.history.append_monitor(self.step, *self.monitor(field))
+            self.history.append_monitor(self.step, self.monitor(field))
         if self.checkpoint is not None and self.checkpoint_every and self.step % self.checkpoint_every == 0:
             self.checkpoint(np.asarray(field), self.step, self.history)
         if max_force < self.rule.force_tol or self.quiet_steps >= self.rule.patience:
@@ -167,7 +172,7 @@ def minimise(
     time_step: for the flows, in units of the smallest spacing h (arrested Newton flow,
     default 0.07) or of h^2 (gradient flow, default 0.01).  progress(step, energy,
     max_force, seconds) and checkpoint(field, step, history) are optional callbacks;
-    monitor(field) -> (virial, hopf_charge) is called every ``monitor_every`` steps and its
+    monitor(field) -> dict (see History.append_monitor) is called every ``monitor_every`` steps and its
     values kept in the history.
     """
     if method not in METHODS:

@@ -24,11 +24,14 @@ def test_vacuum_after_charge_one_is_unwound():
 
 def test_warnings_for_box_contact_and_off_integer_charge():
     density = np.zeros(GRID.shape)
-    density[0, 16, 16] = 1.0  # all the energy on the border
+    density[16, 16, 16] = 0.99
+    density[0, 16, 16] = 0.01  # 1 % of the energy on the border
     verdict = assess(hopf_map(GRID, 1.0), GRID, density, 0.8, 1, -0.2, "converged")
     text = " ".join(verdict["warnings"])
     assert "touches the box" in text and "far from an integer" in text and "virial" in text
-    assert boundary_energy_fraction(density, GRID) == 1.0
+    assert abs(boundary_energy_fraction(density, GRID) - 0.01) < 1e-12
+    density[0, 16, 16] = 0.2  # a sixth of the energy on the border: spread
+    assert assess(hopf_map(GRID, 1.0), GRID, density, 1.0, 1, 0.0, "converged")["verdict"] == "spread"
 
 
 def test_core_thickness_of_a_linear_twist():

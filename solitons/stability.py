@@ -1,0 +1,122 @@
+"""Is the energy bounded below, and is a relaxed state a minimum?
+
+* `probe_density`: the derived criterion for quartic combinations (`terms.quartic_bound`)
+  plus a numerical probe of the whole model density on random local fields (random unit
+  n, random tangent derivatives, random Laplacian) stretched and squeezed over five
+  decades of gradient strength.  A negative value means some local state lowers the
+  energy; for first-derivative densities a helix n = (sin t cos kz, sin t sin kz, cos t)
+  realises constant strain everywhere, so a negative density there makes the energy
+  extensive and negative: not bounded below in infinite space.
+* `lowest_modes`: the lowest eigenvalues of the Hessian on the tangent space of the
+  product of spheres, by Lanczos (scipy.sparse.linalg.eigsh) on jax Hessian-vector
+  products.  The Riemannian Hessian of E restricted to |n| = 1 is
+  Hess[v] = P(D^2E[v]) - (n . dE/dn) v for tangent v (P: projection on the tangent
+  plane; Absil, Mahony & Sepulchre, Optimization Algorithms on Matrix Manifolds, 2008,
+  Prop. 5.5.4 for the sphere).  Eigenvalues are in Euler-Lagrange units (divided by
+  NORMALISATION * cell volume), i.e. 1/length^2 like the squares of vibration
+  frequencies.  Modes with a large overlap with the translation generators d_i n are
+  reported apart as translation zero modes.
+"""
+
+from __future__ import annotations
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+import scipy.sparse.linalg
+
+from solitons.energy import Model, project_tangent
+from solitons.terms import quartic_bound
+
+NEGATIVE_MODE = -0.02  # eigenvalue below this (1/length^2) counts as clearly negative
+
+
+def probe_density(terms, samples: int = 4000, seed: int = 0) -> dict:
+    rng = np.random.default_rng(seed)
+    n = rng.standard_normal((samples, 3))
+    n /= np.linalg.norm(n, axis=-1, keepdims=True)
+    d = rng.standard_normal((samples, 3, 3))
+    d -= np.sum(d * n[:, None, :], -1, keepdims=True) * n[:, None, :]
+    # rank-1 strains (a helix) as well as generic ones
+    d[: samples // 4, 1:, :] = 0.0
+    lap = rng.standard_normal((samples, 3))
+    lowest = np.inf
+    for stretch in (1e-2, 1e-1, 1.0, 10.0, 100.0):
+        total = 0.0
+        for term in terms:
+            values = term.kind.density(jnp.asarray(n), jnp.asarray(stretch * d),
+                                       jnp.asarray(stretch**2 * lap), **term.parameter_values())
+            total = total + term.coupling * np.asarray(values)
+        scale = np.max(np.abs(total)) or 1.0
+        lowest = min(lowest, float(np.min(total) / scale))
+    bound = quartic_bound(terms)
+    negative = lowest < -1e-9 or not bound["bounded"]
+    return {"negative": bool(negative), "lowest_relative": lowest, "quartic": bound}
+
+
+def _tangent_basis(field: np.ndarray):
+    """Two orthonormal tangent vectors per site, (Nx, Ny, Nz, 3) each."""
+    helper = np.zeros_like(field)
+    helper[..., 0] = 1.0
+    near_x = np.abs(field[..., 0]) > 0.9
+    helper[near_x] = np.array([0.0, 1.0, 0.0])
+    e1 = helper - np.sum(helper * field, -1, keepdims=True) * field
+    e1 /= np.linalg.norm(e1, axis=-1, keepdims=True)
+    e2 = np.cross(field, e1)
+    return e1, e2
+
+
+def lowest_modes(model: Model, field, count: int = 8, tol: float = 1e-6, max_iterations: int | None = None) -> dict:
+    """Lowest ``count`` Hessian eigenvalues of a (relaxed) field, with translation
+    overlaps.  Held border sites are excluded."""
+    field = np.asarray(field, dtype=np.float64)
+    scale = model.force_scale()
+    free = model.grid.free_mask()[..., 0] > 0
+    e1, e2 = _tangent_basis(field)
+    field_j = jnp.asarray(field)
+    e1_j, e2_j = jnp.asarray(e1), jnp.asarray(e2)
+    free_j = jnp.asarray(free)
+    size = int(free.sum())
+
+    grad_fn = jax.grad(lambda f: model.energy(f))
+    raw_gradient = grad_fn(field_j)
+    normal_part = jnp.sum(raw_gradient * field_j, axis=-1, keepdims=True)
+
+    def to_vectors(coefficients):
+        a = jnp.zeros(free.shape).at[free_j].set(coefficients[:size])
+        b = jnp.zeros(free.shape).at[free_j].set(coefficients[size:])
+        return a[..., None] * e1_j + b[..., None] * e2_j
+
+    def to_coefficients(vectors):
+        return jnp.concatenate((jnp.sum(vectors * e1_j, -1)[free_j], jnp.sum(vectors * e2_j, -1)[free_j]))
+
+    @jax.jit
+    def hessian_vector(coefficients):
+        v = to_vectors(coefficients)
+        _, second = jax.jvp(grad_fn, (field_j,), (v,))
+        return to_coefficients(project_tangent(field_j, second) - normal_part * v) / scale
+
+    operator = scipy.sparse.linalg.LinearOperator(
+        (2 * size, 2 * size), matvec=lambda x: np.asarray(hessian_vector(jnp.asarray(x))), dtype=np.float64)
+    values, vectors = scipy.sparse.linalg.eigsh(operator, k=count, which="SA", tol=tol,
+                                                maxiter=max_iterations)
+    order = np.argsort(values)
+    values, vectors = values[order], vectors[:, order]
+
+    # translation generators: d_i n by spectral-free central differences, normalised
+    generators = []
+    for axis, h in enumerate(model.grid.spacing):
+        g = (np.roll(field, -1, axis) - np.roll(field, 1, axis)) / (2 * h)
+        c = np.asarray(to_coefficients(jnp.asarray(g)))
+        generators.append(c / np.linalg.norm(c))
+    generators = np.array(generators)
+    overlaps = [float(np.sum((generators @ vectors[:, k]) ** 2)) for k in range(count)]
+    translation = [bool(o > 0.5) for o in overlaps]
+    negative = [float(v) for v, t in zip(values, translation) if v < NEGATIVE_MODE and not t]
+    return {
+        "eigenvalues": [float(v) for v in values],
+        "translation_overlap": overlaps,
+        "translation_modes": [float(v) for v, t in zip(values, translation) if t],
+        "negative_modes": len(negative),
+        "threshold": NEGATIVE_MODE,
+    }
