@@ -36,6 +36,12 @@ def _parser() -> argparse.ArgumentParser:
         p.add_argument("--quiet", action="store_true", help="no progress lines on stderr")
         p.add_argument("--no-figures", dest="figures", action="store_false",
                        help="skip the PNG figures at the end of the run")
+    scan = sub.add_parser("scan", help="relax a configuration over a range of couplings ([scan] table)")
+    scan.add_argument("config", help="TOML configuration with a [scan] table")
+    scan.add_argument("--out", help="output directory (default runs/<config name>)")
+    scan.add_argument("overrides", nargs="*", metavar="dotted.key=value")
+    scan.add_argument("--quiet", action="store_true", help="no progress bar")
+    scan.add_argument("--no-figures", dest="figures", action="store_false")
     show = sub.add_parser("show", help="write PNG figures of a result file")
     show.add_argument("result", help="a result.h5 written by relax")
     show.add_argument("--out", help="directory for the figures (default: next to the result)")
@@ -64,7 +70,7 @@ def _figures(out: Path, level=None, stream=sys.stdout):
 def main(argv: list[str] | None = None) -> int:
     parser = _parser()
     args, extra = parser.parse_known_args(argv)
-    if args.command in ("relax", "demo"):
+    if args.command in ("relax", "demo", "scan"):
         unknown = [item for item in extra if item.startswith("-") or "=" not in item]
         if unknown:
             parser.error(f"unrecognised arguments: {' '.join(unknown)}")
@@ -100,6 +106,16 @@ def main(argv: list[str] | None = None) -> int:
                                 "hopf_charge": summary.get("hopf_charge"),
                                 "energy": summary.get("energy")})
             print(plot_gallery(entries, args.out, level=DEFAULT_LEVEL if args.level is None else args.level))
+            return EXIT_OK
+        if args.command == "scan":
+            from solitons.campaigns import format_table, read_scan_table, run_scan
+
+            out = Path(args.out) if args.out else Path("runs") / Path(args.config).stem
+            rows = run_scan(args.config, out, args.overrides,
+                            stream=None if args.quiet else sys.stderr, figures=args.figures)
+            key = read_scan_table(args.config)["keys"][0]
+            print(format_table(rows, key))
+            print(f"files         {out / 'scan.csv'}" + (f"  {out / 'scan.png'}" if args.figures else ""))
             return EXIT_OK
         if args.command == "demo":
             spec = load(None, args.overrides, text=demo_config_text())

@@ -222,7 +222,7 @@ def _apply_override(merged: dict, key: str, value: Any, sources: dict):
 
 
 def load(path: str | Path | None, overrides: list[str] = (), text: str | None = None,
-         base_dir: str | Path | None = None) -> RunSpec:
+         base_dir: str | Path | None = None, ignore_tables: tuple[str, ...] = ()) -> RunSpec:
     """Read, merge and validate a configuration (``text`` instead of a file if given).
     Relative paths of user-term files are taken from ``base_dir`` (default: the config
     file's folder, or the working directory)."""
@@ -236,6 +236,8 @@ def load(path: str | Path | None, overrides: list[str] = (), text: str | None = 
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as error:
         raise ConfigError(source, "(syntax)", "", f"not valid TOML: {error}") from None
+    for table in ignore_tables:  # read by another layer (for example [scan])
+        data.pop(table, None)
     merged = copy.deepcopy(DEFAULTS)
     sources: dict[str, str] = {"*": source}
     _merge_file(merged, data, source, sources)

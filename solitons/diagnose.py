@@ -24,6 +24,7 @@ Verdicts (first that applies):
                  the half side and still growing, or BOUNDARY_SPREAD of the energy on the
                  border)
 ``unwound``      the charge changed by more than 1/2 without collapse or spreading
+``unbounded``    (also) a relaxed state of a model whose density takes negative values
 ``not converged`` the stopping rule was not met
 ``saddle``       converged, but the Hessian has a clearly negative mode
 ``stable``       converged, charge kept, none of the above
@@ -114,7 +115,6 @@ def assess(field, grid: Grid, energy_density, hopf_charge: float, expected_charg
     half_side = 0.5 * min(grid.side)
     thickness = _series(history, "thickness")
     size = _series(history, "size")
-    boundary = _series(history, "boundary_fraction")
     energies = np.asarray(energy_history if energy_history is not None else [], dtype=float)
     nearest = int(round(hopf_charge))
     finite_thickness = thickness[np.isfinite(thickness)]
@@ -153,14 +153,18 @@ def assess(field, grid: Grid, energy_density, hopf_charge: float, expected_charg
         verdict = COLLAPSED
         warnings.append(f"the core thinned to {min_thickness / h:.2f} lattice spacings: collapse "
                         "(stopped or unwound by the lattice)")
-    elif (now["size"] > SPREAD_FRACTION * half_side and growing) or now["boundary_fraction"] > BOUNDARY_SPREAD \
-            or (len(boundary) and boundary.max() > BOUNDARY_SPREAD):
+    elif not charge_lost and ((now["size"] > SPREAD_FRACTION * half_side and growing)
+                              or now["boundary_fraction"] > BOUNDARY_SPREAD):
         verdict = SPREAD
         warnings.append(f"the soliton spread to the box (size {now['size']:.2f} of half side "
                         f"{half_side:.2f}, {100 * now['boundary_fraction']:.1f} % of the energy on the border)")
     elif charge_lost:
         verdict = UNWOUND
         warnings.append(f"charge changed from {expected_charge} to {hopf_charge:.3f}")
+    elif negative_density:
+        verdict = UNBOUNDED
+        warnings.append("this state may be a local minimum, but of an energy that is not "
+                        "bounded below: metastable at best, not a stable soliton")
     elif status != "converged":
         verdict = NOT_CONVERGED
         warnings.append("NOT CONVERGED: the stopping rule was not met; energies are upper "

@@ -42,7 +42,7 @@ BYTES_PER_POINT = 2600
 
 # Steps between the slower diagnostics kept in the history (virial, Hopf charge): each
 # costs about one energy evaluation plus a few FFTs.
-MONITOR_EVERY = 20
+MONITOR_EVERY = 20  # and every 5 steps during the first 200
 
 
 class RunError(RuntimeError):
@@ -130,9 +130,10 @@ class Progress:
 
 
 def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: bool = False,
-          stream: TextIO | None = sys.stderr) -> dict:
+          stream: TextIO | None = sys.stderr, initial_field: np.ndarray | None = None) -> dict:
     """Relax the configuration of ``spec`` and write DIR/result.h5 and DIR/summary.json.
-    Returns the summary dictionary.  ``stream`` receives progress (None: quiet)."""
+    Returns the summary dictionary.  ``stream`` receives progress (None: quiet);
+    ``initial_field`` replaces the configured initial data (continuation in scans)."""
     out = Path(out_dir)
     grid = make_grid(spec)
     model = make_model(spec, grid)
@@ -151,7 +152,9 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     else:
         if (out / RESULT).exists() and not overwrite:
             raise RunError(f"{out / RESULT} exists; pass --overwrite to replace it or --resume")
-        field0 = make_initial_field(spec, grid)
+        field0 = make_initial_field(spec, grid) if initial_field is None else np.asarray(initial_field)
+        if field0.shape != grid.shape + (3,):
+            raise RunError(f"initial field of shape {field0.shape} does not fit the grid {grid.shape}")
     out.mkdir(parents=True, exist_ok=True)
 
     def checkpoint(field, step, hist):

@@ -139,7 +139,10 @@ class _Tracker:
         self.last_energy = energy
         if self.progress is not None:
             self.progress(self.step, energy, max_force, elapsed)
-        if self.monitor is not None and self.monitor_every and self.step % self.monitor_every == 0:
+        if self.monitor is not None and self.monitor_every and (
+                self.step % self.monitor_every == 0
+                or (self.step < 10 * self.monitor_every and self.step % max(1, self.monitor_every // 4) == 0)):
+            # denser early on, where collapse or unwinding can happen within a few steps
             self.history.append_monitor(self.step, self.monitor(field))
         if self.checkpoint is not None and self.checkpoint_every and self.step % self.checkpoint_every == 0:
             self.checkpoint(np.asarray(field), self.step, self.history)
@@ -179,6 +182,8 @@ def minimise(
         raise ValueError(f"unknown method {method!r}; choose from {METHODS}")
     tracker = _Tracker(model, rule, history, start_step, progress, checkpoint, checkpoint_every,
                        monitor, monitor_every)
+    if monitor is not None and monitor_every and not tracker.history.monitor_step:
+        tracker.history.append_monitor(start_step, monitor(jnp.asarray(field0)))
     start = time.perf_counter()
     runner = {"lbfgs": _lbfgs, "arrested_newton": _arrested_newton,
               "gradient_flow": _gradient_flow, "scipy_lbfgs": _scipy_lbfgs}

@@ -14,8 +14,10 @@
   plane; Absil, Mahony & Sepulchre, Optimization Algorithms on Matrix Manifolds, 2008,
   Prop. 5.5.4 for the sphere).  Eigenvalues are in Euler-Lagrange units (divided by
   NORMALISATION * cell volume), i.e. 1/length^2 like the squares of vibration
-  frequencies.  Modes with a large overlap with the translation generators d_i n are
-  reported apart as translation zero modes.
+  frequencies.  Modes that lie mostly (overlap > 1/2) in the span of the translation
+  generators d_i n, or of the rotation generators (spatial (x x grad) n and target
+  e3 x n), are reported apart as symmetry (near-)zero modes; only other modes below
+  NEGATIVE_MODE count as negative.
 """
 
 from __future__ import annotations
@@ -103,20 +105,34 @@ def lowest_modes(model: Model, field, count: int = 8, tol: float = 1e-6, max_ite
     order = np.argsort(values)
     values, vectors = values[order], vectors[:, order]
 
-    # translation generators: d_i n by spectral-free central differences, normalised
-    generators = []
-    for axis, h in enumerate(model.grid.spacing):
-        g = (np.roll(field, -1, axis) - np.roll(field, 1, axis)) / (2 * h)
-        c = np.asarray(to_coefficients(jnp.asarray(g)))
-        generators.append(c / np.linalg.norm(c))
-    generators = np.array(generators)
-    overlaps = [float(np.sum((generators @ vectors[:, k]) ** 2)) for k in range(count)]
-    translation = [bool(o > 0.5) for o in overlaps]
-    negative = [float(v) for v, t in zip(values, translation) if v < NEGATIVE_MODE and not t]
+    # symmetry generators, tangent vectors normalised: translations d_i n (central
+    # differences), spatial rotations (x x grad)_i n, and the target rotation e3 x n
+    coords = [c[..., None] for c in model.grid.mesh()]
+    d = [(np.roll(field, -1, a) - np.roll(field, 1, a)) / (2 * h) for a, h in enumerate(model.grid.spacing)]
+    rotations = [coords[1] * d[2] - coords[2] * d[1], coords[2] * d[0] - coords[0] * d[2],
+                 coords[0] * d[1] - coords[1] * d[0]]
+    internal = np.cross(np.array([0.0, 0.0, 1.0]), field)
+
+    def normalised(vectors):
+        c = np.asarray(to_coefficients(jnp.asarray(vectors)))
+        norm = np.linalg.norm(c)
+        return c / norm if norm > 0 else c
+
+    def overlap(generators, k):
+        basis, _ = np.linalg.qr(np.array([normalised(g) for g in generators]).T)
+        return float(np.sum((basis.T @ vectors[:, k]) ** 2))
+
+    translation_overlap = [overlap(d, k) for k in range(count)]
+    rotation_overlap = [overlap(rotations + [internal], k) for k in range(count)]
+    symmetric = [max(t, r) > 0.5 for t, r in zip(translation_overlap, rotation_overlap)]
+    negative = [float(v) for v, sym in zip(values, symmetric) if v < NEGATIVE_MODE and not sym]
     return {
         "eigenvalues": [float(v) for v in values],
-        "translation_overlap": overlaps,
-        "translation_modes": [float(v) for v, t in zip(values, translation) if t],
+        "translation_overlap": translation_overlap,
+        "rotation_overlap": rotation_overlap,
+        "translation_modes": [float(v) for v, t in zip(values, translation_overlap) if t > 0.5],
+        "rotation_modes": [float(v) for v, r, t in zip(values, rotation_overlap, translation_overlap)
+                           if r > 0.5 and t <= 0.5],
         "negative_modes": len(negative),
         "threshold": NEGATIVE_MODE,
     }

@@ -30,3 +30,19 @@ def test_charge_two_energy(tmp_path):
     assert summary["converged"]
     assert abs(summary["hopf_charge"] - 2) < 1e-3
     assert abs(summary["energy"] / 2.00 - 1) < 0.03
+
+
+def test_hessian_of_relaxed_charge_one(tmp_path):
+    """The relaxed Q = 1 soliton is a minimum: no clearly negative Hessian mode, and the
+    lowest modes include the translation near-zero modes (three, lifted slightly by the
+    box and lattice) and the rotation modes (derived: exact symmetries of the continuum
+    energy).  41^3, h = 0.2, second-order scheme."""
+    spec = load(None, ["grid.points=41", "grid.spacing=0.2", "relax.max_steps=1500",
+                       "relax.force_tol=1e-4", "relax.hessian_modes=8"], text="")
+    summary = relax(spec, tmp_path, stream=None)
+    hessian = summary["evidence"]["hessian"]
+    assert summary["verdict"] == "stable"
+    assert hessian["negative_modes"] == 0
+    assert len(hessian["translation_modes"]) == 3
+    assert all(abs(v) < 0.1 for v in hessian["translation_modes"])
+    assert min(hessian["eigenvalues"]) > hessian["threshold"]

@@ -38,16 +38,18 @@ def test_gradient_matches_finite_difference(kind, rng):
 @pytest.mark.parametrize("kind", [k for k in KINDS if BUILTIN_TERMS[k].derivatives is not None])
 def test_derrick_weight_on_analytic_field(kind):
     """E_term[n(lambda x)] = lambda^(d - 3) E_term[n] (Derrick; REFERENCES.md), with
-    n(lambda x) the Hopf map of size 1/lambda on the same fine grid; tolerance 3e-3 covers
-    the fourth-order lattice error at h = 0.1 (the profile has a cubic kink at r = 0)."""
+    n(lambda x) the Hopf map of size 1/lambda on the same fine grid; tolerance 5e-3 covers
+    the fourth-order lattice error at h = 0.125 (largest measured: 3.8e-3 for the sextic
+    term; the profile has a cubic kink at r = 0), far below the 25 % that separates
+    neighbouring weights."""
     lam = 1.25
-    grid = Grid.centred(81, 0.1, "fixed")
+    grid = Grid.centred(65, 0.125, "fixed")
     model = Model(single(kind), grid, "fourth")
     base = model.energies(hopf_map(grid, 1.0))[kind]
     scaled = model.energies(hopf_map(grid, 1.0 / lam))[kind]
     assert abs(base) > 1e-3
     expected = lam ** (BUILTIN_TERMS[kind].derivatives - 3)
-    assert abs(scaled / base / expected - 1) < 3e-3
+    assert abs(scaled / base / expected - 1) < 5e-3
 
 
 @pytest.mark.parametrize("kind", KINDS)
@@ -55,7 +57,7 @@ def test_virial_equals_derrick_derivative(kind):
     """sum_a h_a dE/dh_a (autodiff) equals -dE[n(lambda x)]/dlambda at lambda = 1, taken
     here by a central finite difference over Hopf maps of size 1/lambda (derived; the
     identity of ARCHITECTURE.md).  Holds for the non-homogeneous log term as well."""
-    grid = Grid.centred(81, 0.1, "fixed")
+    grid = Grid.centred(65, 0.125, "fixed")
     model = Model(single(kind), grid, "fourth")
     energy = model.energies(hopf_map(grid, 1.0))[kind]
     virial = model.virial(hopf_map(grid, 1.0))["total"] * energy

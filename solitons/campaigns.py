@@ -1,0 +1,201 @@
+"""Coupling scans: many relaxations of one configuration with one or more entries varied.
+
+A scan file is a run configuration plus a ``[scan]`` table::
+
+    [scan]
+    parameter = "terms.extra.coupling"      # a dotted key, or a list of keys varied together
+    values = [0.2, 0.1, 0.0, -0.1]          # or start / stop / num for an even range
+    continuation = false                    # true: each point starts from the previous result
+
+Each point is relaxed into DIR/points/NNN/ (its own result.h5 and summary.json); a point
+whose summary.json exists for the same configuration is not relaxed again.  The scan
+writes DIR/scan.csv and DIR/scan.png and prints a table.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import sys
+import tomllib
+from pathlib import Path
+from typing import TextIO
+
+import numpy as np
+
+from solitons.config import ConfigError, _is_real, load
+from solitons.driver import RESULT, SUMMARY, config_hash, relax
+from solitons.io import read_result
+
+SCAN_KEYS = ("parameter", "values", "start", "stop", "num", "continuation")
+
+
+def read_scan_table(path: str | Path) -> dict:
+    """The validated [scan] table: keys (list), values (list of tuples), continuation."""
+    source = str(path)
+    try:
+        data = tomllib.loads(Path(path).read_text())
+    except OSError as error:
+        raise ConfigError(source, "(file)", str(path), f"cannot be read: {error.strerror}") from None
+    except tomllib.TOMLDecodeError as error:
+        raise ConfigError(source, "(syntax)", "", f"not valid TOML: {error}") from None
+    table = data.get("scan")
+    if not isinstance(table, dict):
+        raise ConfigError(source, "scan", table, "a scan needs a [scan] table")
+    for key in table:
+        if key not in SCAN_KEYS:
+            raise ConfigError(source, f"scan.{key}", table[key], f"unknown key; expected {', '.join(SCAN_KEYS)}")
+    keys = table.get("parameter")
+    keys = [keys] if isinstance(keys, str) else keys
+    if not keys or not all(isinstance(k, str) and "." in k for k in keys):
+        raise ConfigError(source, "scan.parameter", table.get("parameter"),
+                          "must be a dotted key such as terms.extra.coupling, or a list of them")
+    if "values" in table:
+        values = table["values"]
+        if not isinstance(values, list) or not values:
+            raise ConfigError(source, "scan.values", values, "must be a non-empty list")
+        if len(keys) == 1:
+            values = [[v] for v in values]
+        elif not all(isinstance(v, list) and len(v) == len(keys) for v in values):
+            raise ConfigError(source, "scan.values", values,
+                              f"with {len(keys)} parameters every value must be a list of {len(keys)}")
+    else:
+        start, stop, num = table.get("start"), table.get("stop"), table.get("num")
+        if not (_is_real(start) and _is_real(stop)):
+            raise ConfigError(source, "scan.start", start, "give values, or start, stop and num")
+        if not isinstance(num, int) or num < 1:
+            raise ConfigError(source, "scan.num", num, "must be a positive integer")
+        values = [[float(v)] * len(keys) for v in np.linspace(start, stop, num)]
+    for point in values:
+        for v in point:
+            if not (_is_real(v) or isinstance(v, str)):
+                raise ConfigError(source, "scan.values", v, "must hold numbers")
+    continuation = table.get("continuation", False)
+    if not isinstance(continuation, bool):
+        raise ConfigError(source, "scan.continuation", continuation, "must be true or false")
+    return {"keys": keys, "values": [tuple(p) for p in values], "continuation": continuation}
+
+
+def _override(key, value):
+    return f"{key}={json.dumps(value)}"
+
+
+def scan_specs(path, overrides=()):
+    """Validate every point before any work: (scan table, [(values, RunSpec)])."""
+    table = read_scan_table(path)
+    specs = []
+    for point in table["values"]:
+        point_overrides = list(overrides) + [_override(k, v) for k, v in zip(table["keys"], point)]
+        specs.append((point, load(path, point_overrides, ignore_tables=("scan",))))
+    return table, specs
+
+
+LEGEND = {
+    "stable": ("o", "tab:green", "stable soliton"),
+    "collapsed": ("v", "tab:red", "shrank to the lattice"),
+    "spread": ("^", "tab:orange", "grew to fill the box"),
+    "unwound": ("x", "tab:purple", "charge lost"),
+    "unbounded": ("D", "black", "energy not bounded below"),
+    "saddle": ("s", "tab:blue", "saddle (negative mode)"),
+    "not converged": ("P", "tab:gray", "not converged"),
+    "non-finite": ("*", "tab:brown", "non-finite energy"),
+}
+
+
+def run_scan(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr, figures: bool = True) -> list[dict]:
+    """Relax every point of the scan in ``path``; write scan.csv (and scan.png)."""
+    from tqdm import tqdm
+
+    table, specs = scan_specs(path, overrides)
+    out = Path(out_dir)
+    rows = []
+    previous_field = None
+    bar = tqdm(total=len(specs), desc="scan points", unit="point", file=stream or sys.stderr,
+               disable=stream is None)
+    for index, (point, spec) in enumerate(specs):
+        point_dir = out / "points" / f"{index:03d}"
+        summary_path = point_dir / SUMMARY
+        summary = None
+        if summary_path.exists():
+            saved = json.loads(summary_path.read_text())
+            if saved.get("config_hash") == config_hash(spec.text) and (point_dir / RESULT).exists():
+                summary = saved  # finished before: skip
+                summary["skipped"] = True
+        if summary is None:
+            start_field = previous_field if table["continuation"] else None
+            summary = relax(spec, point_dir, overwrite=True, stream=None, initial_field=start_field)
+            summary["skipped"] = False
+        if table["continuation"]:
+            previous_field = read_result(point_dir / RESULT)["field"]
+        row = {"index": index}
+        row.update({k: v for k, v in zip(table["keys"], point)})
+        row.update({"energy": summary["energy"]})
+        row.update({f"E[{k}]": v for k, v in summary["terms"].items()})
+        e = summary["evidence"]
+        row.update({"hopf_charge": summary["hopf_charge"], "virial": summary["virial"],
+                    "size": e["size"], "core_thickness": e["core_thickness"],
+                    "boundary_fraction": e["boundary_energy_fraction"], "verdict": summary["verdict"],
+                    "converged": summary["converged"], "iterations": summary["iterations"],
+                    "skipped": summary["skipped"], "path": str(point_dir)})
+        rows.append(row)
+        bar.update(1)
+        bar.set_postfix_str(f"{summary['verdict']}")
+    bar.close()
+    write_csv(out / "scan.csv", rows)
+    if figures:
+        plot_scan(rows, table["keys"][0], out / "scan.png")
+    return rows
+
+
+def write_csv(path: Path, rows: list[dict]) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.tmp")
+    fields = list(dict.fromkeys(k for row in rows for k in row))
+    with open(tmp, "w", newline="") as handle:
+        writer = csv.DictWriter(handle, fieldnames=fields)
+        writer.writeheader()
+        writer.writerows(rows)
+    tmp.replace(path)
+
+
+def format_table(rows: list[dict], key: str) -> str:
+    terms = [k for k in rows[0] if k.startswith("E[")]
+    header = [key, "E"] + terms + ["Q", "virial", "size", "verdict"]
+    lines = [" | ".join(header), " | ".join("---" for _ in header)]
+    for row in rows:
+        cells = [f"{row[key]:g}" if isinstance(row[key], float) else str(row[key]), f"{row['energy']:.5f}"]
+        cells += [f"{row[t]:.5f}" for t in terms]
+        cells += [f"{row['hopf_charge']:.4f}", f"{row['virial']:+.4f}", f"{row['size']:.3f}", row["verdict"]]
+        lines.append(" | ".join(cells))
+    return "\n".join(lines)
+
+
+def plot_scan(rows: list[dict], key: str, path: Path) -> Path:
+    """Energy, size and virial against the scanned value; marker by verdict."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    x = np.array([float(r[key]) for r in rows])
+    fig, axes = plt.subplots(1, 3, figsize=(15, 4.6), dpi=110, constrained_layout=True)
+    panels = (("energy", "energy E"), ("size", "size (RMS radius of the energy)"),
+              ("virial", "virial residual"))
+    for ax, (column, label) in zip(axes, panels):
+        y = np.array([float(r[column]) for r in rows])
+        ax.plot(x, y, color="0.7", lw=1, zorder=1)
+        for verdict, (marker, colour, text) in LEGEND.items():
+            chosen = [i for i, r in enumerate(rows) if r["verdict"] == verdict]
+            if chosen:
+                ax.scatter(x[chosen], y[chosen], marker=marker, color=colour, s=60, zorder=2, label=text)
+        ax.set_xlabel(key)
+        ax.set_title(label)
+        ax.grid(alpha=0.3)
+    axes[2].axhline(0, color="k", lw=0.6)
+    axes[0].legend(fontsize=8)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.tmp.png")
+    fig.savefig(tmp)
+    plt.close(fig)
+    tmp.replace(path)
+    return path
