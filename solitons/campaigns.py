@@ -9,7 +9,8 @@ A scan file is a run configuration plus a ``[scan]`` table::
 
 Each point is relaxed into DIR/points/NNN/ (its own result.h5 and summary.json); a point
 whose summary.json exists for the same configuration is not relaxed again.  The scan
-writes DIR/scan.csv and DIR/scan.png and prints a table.
+writes DIR/scan.csv, DIR/scan.png (energy, size, virial against the value) and
+DIR/gallery.png (every point's isosurface), and prints a table.
 """
 
 from __future__ import annotations
@@ -144,7 +145,21 @@ def run_scan(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr, fi
     write_csv(out / "scan.csv", rows)
     if figures:
         plot_scan(rows, table["keys"][0], out / "scan.png")
+        write_gallery(rows, table["keys"][0], out / "gallery.png")
     return rows
+
+
+def write_gallery(rows: list[dict], key: str, path: Path) -> Path:
+    """Isosurfaces of every point in one figure, titled with the value, verdict, Q, E."""
+    from solitons.plots import plot_gallery
+
+    entries = []
+    for row in rows:
+        result = read_result(Path(row["path"]) / RESULT)
+        entries.append({"field": result["field"], "grid": result["grid"],
+                        "label": f"{key.split('.')[-2]} = {row[key]:g}, {row['verdict']}",
+                        "hopf_charge": row["hopf_charge"], "energy": row["energy"]})
+    return plot_gallery(entries, path, columns=min(4, len(entries)))
 
 
 def write_csv(path: Path, rows: list[dict]) -> None:

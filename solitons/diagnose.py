@@ -145,8 +145,8 @@ def assess(field, grid: Grid, energy_density, hopf_charge: float, expected_charg
     if status == "non_finite":
         verdict = NON_FINITE
         warnings.append("the energy or force became non-finite; the last finite state was kept")
-    elif len(energies) and ((energies[-1] < 0 and falling) or (negative_density and falling
-                                                                 and status != "converged")):
+    elif status == "runaway" or (len(energies) and ((energies[-1] < 0 and falling) or (
+            negative_density and falling and status != "converged"))):
         verdict = UNBOUNDED
         warnings.append("the energy is running away downwards: not bounded below")
     elif min_thickness <= COLLAPSE_CELLS * h and (charge_lost or thinning):

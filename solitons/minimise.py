@@ -20,7 +20,8 @@ value_and_grad.
 
 Stopping rule (all methods): converged when the largest tangent force over the lattice,
 max_x |P dE/dn| / s, is below ``force_tol``, or when the relative energy change per step has
-stayed below ``energy_tol`` for ``patience`` consecutive steps.  A non-finite energy or
+stayed below ``energy_tol`` for ``patience`` consecutive steps; status ``runaway`` when the
+energy falls below -``runaway`` times the magnitude of the first recorded energy.  A non-finite energy or
 gradient stops the run at once and hands back the last finite state.
 """
 
@@ -43,6 +44,7 @@ METHODS = ("lbfgs", "arrested_newton", "gradient_flow", "scipy_lbfgs")
 CONVERGED = "converged"
 MAX_STEPS = "max_steps"
 NON_FINITE = "non_finite"
+RUNAWAY = "runaway"
 
 
 @dataclass(frozen=True)
@@ -51,6 +53,7 @@ class StoppingRule:
     force_tol: float = 1e-3
     energy_tol: float = 1e-10
     patience: int = 20
+    runaway: float = 10.0  # stop when E < -runaway * |E at the start|: energy running away
 
 
 @dataclass
@@ -124,6 +127,7 @@ class _Tracker:
         self.quiet_steps = 0
         self.start = time.perf_counter()
         self.last_energy = self.history.energy[-1] if self.history.energy else None
+        self.first_energy = self.history.energy[0] if self.history.energy else None
         self.offset = self.history.seconds[-1] if self.history.seconds else 0.0
 
     def record(self, field, energy, max_force) -> str | None:
@@ -136,7 +140,11 @@ class _Tracker:
         if self.last_energy is not None:
             change = abs(energy - self.last_energy) / max(abs(energy), 1e-300)
             self.quiet_steps = self.quiet_steps + 1 if change < self.rule.energy_tol else 0
+        if self.first_energy is None:
+            self.first_energy = energy
         self.last_energy = energy
+        if energy < -self.rule.runaway * abs(self.first_energy):
+            return RUNAWAY
         if self.progress is not None:
             self.progress(self.step, energy, max_force, elapsed)
         if self.monitor is not None and self.monitor_every and (

@@ -42,6 +42,7 @@ def test_scan_writes_table_and_skips_finished_points(tmp_path, continuation):
         table = list(csv.DictReader(handle))
     assert len(table) == 2 and {"energy", "hopf_charge", "virial", "size", "verdict"} <= set(table[0])
     assert matplotlib.image.imread(tmp_path / "out" / "scan.png")[..., :3].std() > 0.05
+    assert matplotlib.image.imread(tmp_path / "out" / "gallery.png")[..., :3].std() > 0.01
     again = run_scan(config, tmp_path / "out", stream=None)
     assert all(r["skipped"] for r in again)
     assert [r["energy"] for r in again] == [r["energy"] for r in rows]
