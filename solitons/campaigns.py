@@ -187,10 +187,7 @@ def format_table(rows: list[dict], key: str) -> str:
 
 def plot_scan(rows: list[dict], key: str, path: Path) -> Path:
     """Energy, size and virial against the scanned value; marker by verdict."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    from solitons.plots import plt, save_figure  # plots selects the Agg backend
 
     x = np.array([float(r[key]) for r in rows])
     fig, axes = plt.subplots(1, 3, figsize=(15, 4.6), dpi=110, constrained_layout=True)
@@ -208,9 +205,4 @@ def plot_scan(rows: list[dict], key: str, path: Path) -> Path:
         ax.grid(alpha=0.3)
     axes[2].axhline(0, color="k", lw=0.6)
     axes[0].legend(fontsize=8)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.tmp.png")
-    fig.savefig(tmp)
-    plt.close(fig)
-    tmp.replace(path)
-    return path
+    return save_figure(fig, path)

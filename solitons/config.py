@@ -250,7 +250,7 @@ def load(path: str | Path | None, overrides: list[str] = (), text: str | None = 
 
 
 def _term_spec(c: _Checker, name: str, term: dict, base_dir: Path) -> TermSpec:
-    
+
     key = f"terms.{name}"
     kind = term.get("kind", name)
     if not isinstance(kind, str) or (kind not in BUILTIN_TERMS and kind != USER_KIND):

@@ -7,7 +7,7 @@ import hashlib
 import sys
 import time
 from pathlib import Path
-from typing import Callable, TextIO
+from typing import TextIO
 
 import numpy as np
 
@@ -19,8 +19,8 @@ from solitons.grid import Grid
 from solitons.initial import add_noise, axial_map
 from solitons.io import read_checkpoint, write_checkpoint, write_json, write_result, write_xdmf
 from solitons.minimise import History, StoppingRule, minimise
-from solitons.terms import BUILTIN_TERMS, Term
 from solitons.stability import lowest_modes, probe_density
+from solitons.terms import BUILTIN_TERMS, Term
 from solitons.topology import hopf_charge
 from solitons.userterms import load_user_term
 
@@ -123,7 +123,8 @@ class Progress:
     def __call__(self, step, energy, force, elapsed):
         if self.stream is None or elapsed - self.last < self.seconds:
             return
-        rate = (step - self.last_step) / max(elapsed - self.last, 1e-9) if np.isfinite(self.last) else step / max(elapsed, 1e-9)
+        since = elapsed - self.last if np.isfinite(self.last) else elapsed
+        rate = (step - self.last_step) / max(since, 1e-9)
         self.last, self.last_step = elapsed, step
         print(f"  step {step:6d}  E = {energy:.8f}  max force {force:.2e}  "
               f"{rate:.1f} steps/s  {elapsed:.0f} s", file=self.stream, flush=True)

@@ -29,7 +29,8 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass, field as dataclass_field
+from dataclasses import dataclass
+from dataclasses import field as dataclass_field
 from typing import Callable
 
 import jax

@@ -80,7 +80,7 @@ def plot_slices(field, grid: Grid, density, path, meta: dict | None = None) -> P
     spacing = ", ".join(f"{h:g}" for h in grid.spacing)
     fig.suptitle(f"{_title_text(meta)}    grid {'x'.join(map(str, grid.shape))}, h = {spacing}"
                  f"  (model length units; black line: $n_3 = 0$)")
-    return _save(fig, path)
+    return save_figure(fig, path)
 
 
 def isosurface_mesh(field, grid: Grid, level: float = DEFAULT_LEVEL):
@@ -166,7 +166,7 @@ def plot_isosurface(field, grid: Grid, path, meta: dict | None = None,
     ax.set_zlabel("z")
     ax.view_init(elev=35, azim=-60)
     ax.set_title(f"{_title_text(meta)}\nisosurface $n_3 = {level}$")
-    return _save(fig, path)
+    return save_figure(fig, path)
 
 
 def plot_curves(field, grid: Grid, path, meta: dict | None = None, direction=PROJECTION) -> Path:
@@ -205,7 +205,7 @@ def plot_curves(field, grid: Grid, path, meta: dict | None = None, direction=PRO
     ax2.set_title(f"projection along {tuple(round(c, 2) for c in direction)}: "
                   f"{len(crossings)} crossings (circles)")
     fig.suptitle(_title_text(meta))
-    return _save(fig, path)
+    return save_figure(fig, path)
 
 
 def plot_history(history: dict, path, meta: dict | None = None) -> Path:
@@ -240,7 +240,7 @@ def plot_history(history: dict, path, meta: dict | None = None) -> Path:
         ax.set_xlabel("step")
         ax.grid(alpha=0.3)
     fig.suptitle(f"relaxation history   {_title_text(meta)}")
-    return _save(fig, path)
+    return save_figure(fig, path)
 
 
 def plot_gallery(entries: list[dict], path, columns: int = 4, level: float = DEFAULT_LEVEL) -> Path:
@@ -259,10 +259,11 @@ def plot_gallery(entries: list[dict], path, columns: int = 4, level: float = DEF
         ax.set_axis_off()
         ax.set_title(_title_text(entry), fontsize=9)
     fig.suptitle(f"isosurfaces $n_3 = {level}$, coloured by the phase of $n_1 + i n_2$")
-    return _save(fig, path)
+    return save_figure(fig, path)
 
 
-def _save(fig, path) -> Path:
+def save_figure(fig, path) -> Path:
+    """Write a PNG atomically (temporary name, then rename) and close the figure."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(f".{path.name}.tmp.png")

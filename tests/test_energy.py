@@ -3,13 +3,12 @@
 import jax.numpy as jnp
 import numpy as np
 import pytest
+from conftest import skyrme_faddeev_model
+from fields import random_rotation
 
 from solitons.energy import normalise
 from solitons.grid import Grid
 from solitons.initial import add_noise, hopf_map
-
-from conftest import skyrme_faddeev_model
-from fields import random_rotation
 
 
 def perturbed_hopf(grid, seed=3):

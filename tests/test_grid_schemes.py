@@ -3,14 +3,13 @@ the fast and generic routes."""
 
 import numpy as np
 import pytest
+from conftest import SKYRME_FADDEEV, skyrme_faddeev_model
+from fields import twisted_field
 from scipy.integrate import quad
 
 from solitons.energy import NORMALISATION, term_energies
 from solitons.grid import Grid
 from solitons.initial import add_noise, hopf_map
-
-from conftest import SKYRME_FADDEEV, skyrme_faddeev_model
-from fields import twisted_field
 
 
 def continuum_twisted_energies(amplitude, k, side):
