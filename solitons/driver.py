@@ -42,7 +42,7 @@ BYTES_PER_POINT = 2600
 
 # Steps between the slower diagnostics kept in the history (virial, Hopf charge): each
 # costs about one energy evaluation plus a few FFTs.
-MONITOR_EVERY = 20  # and every 5 steps during the first 200
+MONITOR_EVERY = 20  # and every 5 steps during the first 40
 
 
 class RunError(RuntimeError):

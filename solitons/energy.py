@@ -156,6 +156,8 @@ class Model:
         """Derrick balance: h_a dE/dh_a / E per axis and in total (see module docstring)."""
         spacing = self.spacing_array()
         total, dspacing = _energy_spacing_grad_jit(self, field, spacing)
+        if float(total) == 0.0:  # the vacuum: no scale to balance
+            return {"total": 0.0, "per_axis": [0.0, 0.0, 0.0]}
         per_axis = np.asarray(spacing * dspacing) / float(total)
         return {"total": float(per_axis.sum()), "per_axis": [float(v) for v in per_axis]}
 

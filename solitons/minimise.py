@@ -150,7 +150,7 @@ class _Tracker:
             self.progress(self.step, energy, max_force, elapsed)
         if self.monitor is not None and self.monitor_every and (
                 self.step % self.monitor_every == 0
-                or (self.step < 10 * self.monitor_every and self.step % max(1, self.monitor_every // 4) == 0)):
+                or (self.step < 2 * self.monitor_every and self.step % max(1, self.monitor_every // 4) == 0)):
             # denser early on, where collapse or unwinding can happen within a few steps
             self.history.append_monitor(self.step, self.monitor(field))
         if self.checkpoint is not None and self.checkpoint_every and self.step % self.checkpoint_every == 0:
