@@ -257,8 +257,11 @@ def plot_gallery(entries: list[dict], path, columns: int = 4, level: float = DEF
                                                  edgecolor="none"))
             _set_equal_3d(ax, verts)
         ax.set_axis_off()
-        ax.set_title(_title_text(entry), fontsize=9)
+        numbers = _title_text({"hopf_charge": entry.get("hopf_charge"), "energy": entry.get("energy")})
+        ax.set_title(f"{entry.get('label') or ''}\n{numbers}", fontsize=9)
     fig.suptitle(f"isosurfaces $n_3 = {level}$, coloured by the phase of $n_1 + i n_2$")
+    fig.subplots_adjust(left=0.01, right=0.99, bottom=0.02, top=0.80 if rows == 1 else 0.92,
+                        wspace=0.05, hspace=0.15)
     return save_figure(fig, path)
 
 
