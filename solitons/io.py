@@ -39,11 +39,23 @@ def _atomic_target(path: Path):
     return Path(tmp)
 
 
+def finite_json(value):
+    """Replace NaN and infinities (not valid JSON) by None, recursively."""
+    if isinstance(value, float) and not np.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {k: finite_json(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [finite_json(v) for v in value]
+    return value
+
+
 def write_json(path: str | Path, data: dict) -> None:
+    """Atomic, strict JSON (non-finite numbers written as null)."""
     path = Path(path)
     tmp = _atomic_target(path)
     try:
-        tmp.write_text(json.dumps(data, indent=2, sort_keys=False) + "\n")
+        tmp.write_text(json.dumps(finite_json(data), indent=2, allow_nan=False) + "\n")
         os.replace(tmp, path)
     finally:
         tmp.unlink(missing_ok=True)
@@ -85,7 +97,7 @@ def write_result(path, field, grid: Grid, energy_density, summary: dict, history
             h5.attrs["virial_per_axis"] = np.asarray(summary["virial_per_axis"])
             h5.attrs["status"] = summary["status"]
             h5.attrs["verdict"] = summary["verdict"]
-            h5.attrs["summary"] = json.dumps(summary)
+            h5.attrs["summary"] = json.dumps(finite_json(summary), allow_nan=False)
         os.replace(tmp, path)
     finally:
         tmp.unlink(missing_ok=True)

@@ -106,3 +106,19 @@ def test_checkpoint_and_resume_continue_the_run(tmp_path):
     from solitons.driver import RunError
     with pytest.raises(RunError, match="different configuration"):
         relax(other, out, resume=True, stream=None)
+
+
+def test_grid_too_large_for_memory_is_refused_before_any_output(tmp_path):
+    out = tmp_path / "huge"
+    proc = subprocess.run([sys.executable, "-m", "solitons.cli", "demo", "--out", str(out),
+                           "grid.points=3000"], capture_output=True, text=True, cwd=ROOT)
+    assert proc.returncode == 2
+    assert "GiB" in proc.stderr and "available" in proc.stderr
+    assert not out.exists()
+
+
+def test_summary_json_is_strict(tmp_path):
+    from solitons.io import write_json
+
+    write_json(tmp_path / "s.json", {"a": float("inf"), "b": [float("nan"), 1.0]})
+    assert json.loads((tmp_path / "s.json").read_text()) == {"a": None, "b": [None, 1.0]}
