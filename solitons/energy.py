@@ -133,8 +133,8 @@ class Model:
     def names(self) -> tuple[str, ...]:
         return tuple(t.name for t in self.terms)
 
-    def spacing_array(self):
-        return jnp.asarray(self.grid.spacing, dtype=jnp.float64)
+    def spacing_array(self, dtype=jnp.float64):
+        return jnp.asarray(self.grid.spacing, dtype=dtype)
 
     def energies(self, field) -> dict[str, float]:
         values = _energies_jit(self, field, self.spacing_array())
@@ -149,7 +149,8 @@ class Model:
 
     def value_and_grad(self, field) -> Evaluation:
         """Total energy and its tangent-projected gradient (held border sites zeroed)."""
-        value, grad = _value_and_grad_jit(self, field, self.spacing_array())
+        field = jnp.asarray(field)
+        value, grad = _value_and_grad_jit(self, field, self.spacing_array(field.dtype))
         return Evaluation(value, grad)
 
     def virial(self, field) -> dict:

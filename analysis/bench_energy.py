@@ -1,0 +1,72 @@
+"""Cost of one jitted value_and_grad against the memory-bandwidth floor.
+
+For each grid size and precision: median wall time of one evaluation (after warm-up),
+nanoseconds per grid point, and the ratio to the floor set by reading the field and
+writing the gradient once (2 x 3 values per point) at the copy bandwidth measured in the
+same run with numpy.  Default model (dirichlet + skyrme_faddeev, second-order scheme) at
+N = 64, 96, 128; every built-in term alone at N = 64.
+
+    python analysis/bench_energy.py > analysis/bench_energy.txt
+"""
+
+from __future__ import annotations
+
+import statistics
+import time
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+
+import solitons  # noqa: F401  (float64 on)
+from solitons.energy import Model
+from solitons.grid import Grid
+from solitons.initial import add_noise, hopf_map
+from solitons.terms import BUILTIN_TERMS, Term
+
+
+def copy_bandwidth(megabytes: int = 512, repeats: int = 5) -> float:
+    """Bytes per second of a large numpy copy (read + write counted)."""
+    source = np.ones(megabytes * 2**20 // 8)
+    target = np.empty_like(source)
+    times = []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        np.copyto(target, source)
+        times.append(time.perf_counter() - start)
+    return 2 * source.nbytes / min(times)
+
+
+def time_evaluation(model: Model, field, repeats: int = 5) -> float:
+    model.value_and_grad(field)[1].block_until_ready()  # compile and warm up
+    times = []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        model.value_and_grad(field)[1].block_until_ready()
+        times.append(time.perf_counter() - start)
+    return statistics.median(times)
+
+
+def main() -> None:
+    bandwidth = copy_bandwidth()
+    print(f"copy bandwidth {bandwidth / 1e9:.1f} GB/s; jax {jax.__version__}, devices {jax.devices()}")
+    print("model               N  dtype     ms/eval   ns/point  ratio to bandwidth floor")
+    default = (Term("dirichlet", BUILTIN_TERMS["dirichlet"]),
+               Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"]))
+    cases = [("default", default, n) for n in (64, 96, 128)]
+    cases += [(name, (Term(name, kind),), 64) for name, kind in BUILTIN_TERMS.items()]
+    for label, terms, points in cases:
+        grid = Grid.centred(points, 8.0 / points, "fixed")
+        model = Model(terms, grid)
+        base = add_noise(hopf_map(grid, 1.0), grid, 0.01, 0)
+        for dtype in (jnp.float64, jnp.float32):
+            field = jnp.asarray(base, dtype=dtype)
+            seconds = time_evaluation(model, field)
+            per_point = seconds / grid.npoints
+            floor = 6 * jnp.dtype(dtype).itemsize / bandwidth
+            print(f"{label:18s} {points:4d}  {jnp.dtype(dtype).name:8s} {1e3 * seconds:9.1f} "
+                  f"{1e9 * per_point:9.0f}  {per_point / floor:8.0f}", flush=True)
+
+
+if __name__ == "__main__":
+    main()
