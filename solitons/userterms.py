@@ -25,6 +25,7 @@ from pathlib import Path
 import jax
 import jax.numpy as jnp
 import numpy as np
+from scipy.spatial.transform import Rotation
 
 from solitons.terms import TermKind
 
@@ -40,14 +41,6 @@ def _random_locals(rng, count=64):
     d -= np.sum(d * n[:, None, :], -1, keepdims=True) * n[:, None, :]  # tangent to S^2
     lap = rng.standard_normal((count, 3))
     return n, d, lap
-
-
-def _rotation(rng):
-    q, r = np.linalg.qr(rng.standard_normal((3, 3)))
-    q = q * np.sign(np.diag(r))
-    if np.linalg.det(q) < 0:
-        q[:, 0] = -q[:, 0]
-    return q
 
 
 def load_user_term(path: str | Path, function: str, derivatives: int | None = None,
@@ -83,7 +76,7 @@ def load_user_term(path: str | Path, function: str, derivatives: int | None = No
                             f"got shape {values.shape}")
     if not np.all(np.isfinite(values)):
         raise UserTermError(f"{label}: returns non-finite values on random fields")
-    rotation = _rotation(rng)
+    rotation = Rotation.random(random_state=rng).as_matrix()
     rotated = np.asarray(density(jnp.asarray(n @ rotation.T), jnp.asarray(d @ rotation.T),
                                  jnp.asarray(lap @ rotation.T) if laplacian else None, **parameters))
     invariant = bool(np.allclose(rotated, values, rtol=1e-10, atol=1e-12 * np.abs(values).max()))

@@ -1,4 +1,7 @@
-"""Configuration errors stop before any work with one line naming file, key and value."""
+"""Configuration errors stop before any work with one line naming file, key and value.
+
+No physics values are checked here; the expected behaviour is the issue's specification
+(common practice for command-line tools: one line, exit code 2, nothing written)."""
 
 import subprocess
 import sys

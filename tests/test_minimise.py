@@ -24,7 +24,7 @@ def test_arrested_newton_flow_descends_between_resets():
     """Between arrests the energy falls at every step; a rise triggers an arrest and the
     next step falls again; and no rise gives back what was gained since the previous
     arrest, so the energies at successive arrests decrease (the defining property of the
-    flow; Battye & Sutcliffe, PRL 81 (1998) 4798)."""
+    flow; Battye & Sutcliffe, Phys. Rev. Lett. 81 (1998) 4798)."""
     model = skyrme_faddeev_model(GRID)
     result = minimise(model, start_field(), "arrested_newton", StoppingRule(max_steps=300, force_tol=0.0))
     energy = np.asarray(result.history.energy)

@@ -1,4 +1,7 @@
-"""Coupling scans end to end on a coarse grid: table, CSV, figure, rerun skips."""
+"""Coupling scans end to end on a coarse grid: table, CSV, figure, rerun skips.
+
+Mechanics only (common practice for campaign tools); the physics of the verdicts is
+checked in test_verdicts.py with its sources."""
 
 import csv
 import subprocess
