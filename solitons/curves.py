@@ -53,10 +53,12 @@ def preimage_curves(field: np.ndarray, grid: Grid, value=(0.0, 0.0, -1.0)) -> li
 def preimage_chains(field: np.ndarray, grid: Grid, value=(0.0, 0.0, -1.0), b_field=None):
     """Like `preimage_curves` but returns (points, closed) pairs.
 
-    Each chain is oriented against the topological field B (B_k = (1/2) eps_kij F_ij is
-    tangent to every preimage curve): since our Q is minus the bare Whitehead integral
-    (solitons.topology), this is the orientation for which the Gauss linking number of two
-    preimages equals Q (Pontryagin; checked in the tests).  ``b_field`` may be passed to
+    Each chain is oriented along the topological field B (B_k = (1/2) eps_kij F_ij is
+    tangent to every preimage curve): the orientation induced from those of R^3 and S^2.
+    The Gauss linking number of two preimages so oriented equals the bare Whitehead
+    integral (helicity of B; Pontryagin), which is minus our Q: with the sign convention
+    of solitons.topology, which makes the Hopf map Q = +1, linking = -Q (checked in the
+    tests for the Hopf map and axial maps up to Q = 4).  ``b_field`` may be passed to
     reuse it."""
     c, s = np.cos(_GENERIC_ANGLE), np.sin(_GENERIC_ANGLE)
     spin = np.array([[c, -s, 0], [s, c, 0], [0, 0, 1.0]])
@@ -123,7 +125,7 @@ def preimage_chains(field: np.ndarray, grid: Grid, value=(0.0, 0.0, -1.0), b_fie
     for index_coords, closed in chains:
         b_at = np.stack([map_coordinates(b_field[..., k], index_coords.T, order=1) for k in range(3)], -1)
         tangent = np.gradient(index_coords * spacing, axis=0)
-        if np.sum(tangent * b_at) > 0:
+        if np.sum(tangent * b_at) < 0:
             index_coords = index_coords[::-1]
         oriented.append((index_coords * spacing + origin, closed))
     return oriented
