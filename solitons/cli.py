@@ -3,7 +3,7 @@ exit codes.
 
 Exit codes: 0 converged and stable; 1 finished without meeting the stopping rule (or
 charge lost); 2 bad input (configuration, arguments, files, output directory); 3 energy
-became non-finite.
+became non-finite; 130 interrupted (Ctrl-C; the last checkpoint stays for --resume).
 """
 
 from __future__ import annotations
@@ -13,7 +13,7 @@ import sys
 from importlib import resources
 from pathlib import Path
 
-EXIT_OK, EXIT_UNCONVERGED, EXIT_INPUT, EXIT_NON_FINITE = 0, 1, 2, 3
+EXIT_OK, EXIT_UNCONVERGED, EXIT_INPUT, EXIT_NON_FINITE, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -123,9 +123,16 @@ def main(argv: list[str] | None = None) -> int:
         else:
             spec = load(args.config, args.overrides)
             out = Path(args.out) if args.out else Path("runs") / Path(args.config).stem
-        summary = relax(spec, out, resume=args.resume,
-                        overwrite=args.overwrite or args.command == "demo",
-                        stream=None if args.quiet else sys.stderr)
+        try:
+            summary = relax(spec, out, resume=args.resume,
+                            overwrite=args.overwrite or args.command == "demo",
+                            stream=None if args.quiet else sys.stderr)
+        except KeyboardInterrupt:
+            checkpoint = out / "checkpoint.h5"
+            hint = (f"; the last checkpoint is {checkpoint}: rerun with --resume to continue"
+                    if checkpoint.exists() else "; no checkpoint was written yet")
+            print(f"solitons: interrupted{hint}", file=sys.stderr)
+            return EXIT_INTERRUPTED
     except (ConfigError, RunError, ResultFileError, UserTermError) as error:
         print(f"solitons: error: {error}", file=sys.stderr)
         return EXIT_INPUT

@@ -4,6 +4,8 @@
 from __future__ import annotations
 
 import hashlib
+import json
+import tomllib
 import sys
 import time
 from pathlib import Path
@@ -91,6 +93,14 @@ def config_hash(text: str) -> str:
     return hashlib.sha256(text.encode()).hexdigest()[:16]
 
 
+def physics_hash(text: str) -> str:
+    """Hash of what defines the field being relaxed (grid, terms, initial data): a resumed
+    run may change the [relax] settings (more steps, other tolerances), nothing else."""
+    data = tomllib.loads(text)
+    data.pop("relax", None)
+    return hashlib.sha256(json.dumps(data, sort_keys=True).encode()).hexdigest()[:16]
+
+
 def available_memory_bytes() -> int | None:
     try:
         for line in Path("/proc/meminfo").read_text().splitlines():
@@ -145,8 +155,9 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         if not checkpoint_path.exists():
             raise RunError(f"{checkpoint_path}: no checkpoint to resume from")
         saved = read_checkpoint(checkpoint_path)
-        if config_hash(saved["config"]) != config_hash(spec.text):
-            raise RunError(f"{checkpoint_path}: the checkpoint belongs to a different configuration")
+        if physics_hash(saved["config"]) != physics_hash(spec.text):
+            raise RunError(f"{checkpoint_path}: the checkpoint belongs to a different configuration "
+                           "(grid, terms or initial data differ; only [relax] may change on resume)")
         field0 = saved["field"]
         history = History.from_arrays(saved["history"])
         start_step = saved["step"]
