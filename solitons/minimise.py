@@ -6,9 +6,9 @@ value_and_grad.
   tangent gradients, a step moves along it and renormalises (retraction), stored pairs are
   transported by projection onto the new tangent planes, and a backtracking Armijo line
   search guards each step.  Written in jax so that the updates run jitted on the device
-  arrays.  Measured against scipy's L-BFGS-B (analysis/bench_relax.txt and the 41^3 runs
-  quoted in the README): faster at 41^3 (16 s against 27 s), slower at 64^3 (104 s against
-  89 s); arrested Newton flow took 122 s at 64^3.
+  arrays.  Measured against scipy's L-BFGS-B: faster at 41^3 (16 s against 27 s, during
+  development), slower at 64^3 (104 s against 89 s, analysis/bench_relax.txt); arrested
+  Newton flow took 122 s at 64^3.
 * ``scipy_lbfgs``: scipy's L-BFGS-B on the unconstrained parametrisation n = u / |u|, kept
   as an independent reference implementation.
 * ``arrested_newton``: second-order flow  d^2 n / dt^2 = force, force = -P(dE/dn) / s with
