@@ -43,15 +43,10 @@ def _rotation_taking(p: np.ndarray, target: np.ndarray) -> np.ndarray:
     return np.eye(3) + sin * k + (1 - cos) * k @ k
 
 
-def preimage_curves(field: np.ndarray, grid: Grid, value=(0.0, 0.0, -1.0)) -> list[np.ndarray]:
-    """Closed polylines (each (M, 3), model coordinates, last point not repeated) where the
-    field equals ``value``.  Open chains (curves cut by the box) are returned too and can
-    be told apart with `is_closed` on the result of `preimage_chains`."""
-    return [points for points, _ in preimage_chains(field, grid, value)]
-
-
 def preimage_chains(field: np.ndarray, grid: Grid, value=(0.0, 0.0, -1.0), b_field=None):
-    """Like `preimage_curves` but returns (points, closed) pairs.
+    """Curves where the field equals ``value``, as (points, closed) pairs: points (M, 3)
+    in model coordinates (last point not repeated); closed is False for a chain cut by
+    the box.
 
     Each chain is oriented along the topological field B (B_k = (1/2) eps_kij F_ij is
     tangent to every preimage curve): the orientation induced from those of R^3 and S^2.

@@ -5,9 +5,9 @@ from __future__ import annotations
 
 import hashlib
 import json
-import tomllib
 import sys
 import time
+import tomllib
 from pathlib import Path
 from typing import TextIO
 

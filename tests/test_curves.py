@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from solitons.curves import (curve_length, linking_number, preimage_chains, projection_crossings)
+from solitons.curves import curve_length, linking_number, preimage_chains, projection_crossings
 from solitons.grid import Grid
 from solitons.initial import axial_map, hopf_map
 

@@ -95,3 +95,18 @@ def test_quartic_bound(a, b, bounded):
     terms = (Term("sf", BUILTIN_TERMS["skyrme_faddeev"], a),
              Term("ds", BUILTIN_TERMS["dirichlet_squared"], b))
     assert quartic_bound(terms)["bounded"] is bounded
+
+
+def test_field_strength_helper_matches_h_squared(rng):
+    """F_ij = n . (d_i n x d_j n) is antisymmetric and sum_{i<j} F_ij^2 = H^2 when the
+    derivatives are tangent to the sphere (derived: d_i n x d_j n is parallel to n)."""
+    from solitons.terms import field_strength, h_squared
+
+    n = rng.standard_normal((50, 3))
+    n /= np.linalg.norm(n, axis=-1, keepdims=True)
+    d = rng.standard_normal((50, 3, 3))
+    d -= np.sum(d * n[:, None, :], -1, keepdims=True) * n[:, None, :]
+    f = np.asarray(field_strength(jnp.asarray(n), jnp.asarray(d)))
+    np.testing.assert_allclose(f, -np.swapaxes(f, -1, -2), atol=1e-14)
+    pairs = f[:, 0, 1] ** 2 + f[:, 0, 2] ** 2 + f[:, 1, 2] ** 2
+    np.testing.assert_allclose(pairs, np.asarray(h_squared(jnp.asarray(d))), rtol=1e-12)
