@@ -32,9 +32,10 @@ Verdicts (first that applies):
 
 from __future__ import annotations
 
+import jax.numpy as jnp
 import numpy as np
 
-from solitons.grid import Grid
+from solitons.grid import Grid, one_sided_differences, pad
 
 STABLE = "stable"
 UNWOUND = "unwound"
@@ -56,16 +57,11 @@ BOUNDARY_SPREAD = 0.05
 
 
 def core_thickness(field: np.ndarray, grid: Grid) -> float:
-    """pi / max |grad n| with forward differences (model length units); inf for a
-    uniform field."""
-    gradient_sq = np.zeros(grid.shape)
-    for axis, h in enumerate(grid.spacing):
-        difference = (np.roll(field, -1, axis=axis) - field) / h
-        if grid.boundary == "fixed":
-            index = [slice(None)] * 3
-            index[axis] = -1
-            difference[tuple(index)] = 0.0
-        gradient_sq += np.sum(difference**2, axis=-1)
+    """pi / max |grad n| with the lattice's forward differences (model length units);
+    inf for a uniform field."""
+    padded = pad(jnp.asarray(field), grid.boundary, 1)
+    forward, _ = one_sided_differences(padded, 1, grid.shape, grid.spacing)
+    gradient_sq = sum(np.sum(np.asarray(f) ** 2, axis=-1) for f in forward)
     steepest = float(np.sqrt(gradient_sq.max()))
     return np.pi / steepest if steepest > 1e-12 else float("inf")
 

@@ -201,9 +201,12 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     energies = model.energies(field)
     virial = model.virial(field)
     charge = hopf_charge(field, grid)
-    if not result.history.monitor_step or result.history.monitor_step[-1] != result.steps:
-        result.history.append_monitor(result.steps, monitor_values(model, field))
     density = model.energy_density(field)
+    if not result.history.monitor_step or result.history.monitor_step[-1] != result.steps:
+        # the final state's diagnostics, from the values just computed
+        final = snapshot(field, grid, density)
+        final.update(virial=virial["total"], hopf_charge=charge)
+        result.history.append_monitor(result.steps, final)
     hessian = None
     if spec.relax.hessian_modes and result.converged:
         if stream is not None:
