@@ -7,8 +7,10 @@ A scan file is a run configuration plus a ``[scan]`` table::
     values = [0.2, 0.1, 0.0, -0.1]          # or start / stop / num for an even range
     continuation = false                    # true: each point starts from the previous result
 
-Each point is relaxed into DIR/points/NNN/ (its own result.h5 and summary.json); a point
-whose summary.json exists for the same configuration is not relaxed again.  The scan
+Each point is relaxed into DIR/points/NNN/ (its own result.h5 and summary.json) as a task
+on the distributed engine (solitons.engine); DIR/catalogue.sqlite records every finished
+point, and a point whose summary.json exists for the same configuration is not relaxed
+again.  The scan
 writes DIR/scan.csv, DIR/scan.png (energy, size, virial against the value) and
 DIR/gallery.png (every point's isosurface), and prints a table.
 """
@@ -18,14 +20,17 @@ from __future__ import annotations
 import csv
 import json
 import sys
+import time
 import tomllib
 from pathlib import Path
 from typing import TextIO
 
 import numpy as np
 
+from solitons import catalogue
 from solitons.config import ConfigError, _is_real, load
-from solitons.driver import RESULT, SUMMARY, config_hash, relax
+from solitons.driver import RESULT, SUMMARY, RunError, config_hash, relax
+from solitons.engine import make_task, model_text, run_tasks
 from solitons.io import read_result
 
 SCAN_KEYS = ("parameter", "values", "start", "stop", "num", "continuation")
@@ -103,31 +108,64 @@ LEGEND = {
 }
 
 
-def run_scan(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr, figures: bool = True) -> list[dict]:
-    """Relax every point of the scan in ``path``; write scan.csv (and scan.png)."""
-    from tqdm import tqdm
+def _finished_summary(point_dir: Path, spec) -> dict | None:
+    summary_path = point_dir / SUMMARY
+    if summary_path.exists() and (point_dir / RESULT).exists():
+        saved = json.loads(summary_path.read_text())
+        if saved.get("config_hash") == config_hash(spec.text):
+            return saved
+    return None
 
+
+def run_scan(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr, figures: bool = True,
+             scheduler: str | None = None, workers: int | None = None) -> list[dict]:
+    """Relax every point of the scan in ``path``; write scan.csv (and scan.png).
+
+    Points are independent tasks on the distributed engine (solitons.engine: a local
+    cluster by default, ``scheduler`` an address or "inline"); with continuation they run
+    one after another in this process, each from the previous result.  Every finished
+    point is recorded in DIR/catalogue.sqlite; finished points are skipped on a rerun."""
     table, specs = scan_specs(path, overrides)
     out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    names = [f"points/{index:03d}" for index in range(len(specs))]
+    summaries = [_finished_summary(out / name, spec) for name, (_, spec) in zip(names, specs)]
+    skipped = [s is not None for s in summaries]
+    base_dir = Path(path).resolve().parent
+    if table["continuation"]:
+        from tqdm import tqdm
+
+        bar = tqdm(total=len(specs), desc="scan points", unit="point", file=stream or sys.stderr,
+                   disable=stream is None)
+        previous_field = None
+        for index, (name, (_, spec)) in enumerate(zip(names, specs)):
+            if summaries[index] is None:
+                start = time.perf_counter()
+                summaries[index] = relax(spec, out / name, overwrite=True, stream=None,
+                                         initial_field=previous_field)
+                catalogue.record(out / catalogue.CATALOGUE, {
+                    "task": name, "config_hash": config_hash(spec.text), "model": model_text(spec),
+                    "family": spec.initial.description, "expected_charge": spec.initial.expected_charge,
+                    "hopf_charge": summaries[index]["hopf_charge"], "energy": summaries[index]["energy"],
+                    "label": summaries[index]["label"], "verdict": summaries[index]["verdict"],
+                    "converged": int(summaries[index]["converged"]), "status": "finished",
+                    "path": str(out / name), "wall_seconds": time.perf_counter() - start,
+                    "finished_at": time.time()})
+            previous_field = read_result(out / name / RESULT)["field"]
+            bar.update(1)
+            bar.set_postfix_str(summaries[index]["verdict"])
+        bar.close()
+    else:
+        tasks = [make_task(out, name, spec.text, base_dir) for name, (_, spec), summary
+                 in zip(names, specs, summaries) if summary is None]
+        failed = [row for row in run_tasks(tasks, scheduler=scheduler, workers=workers, stream=stream,
+                                           describe=lambda row: row.get("verdict") or row["status"])
+                  if row["status"] == "failed"]
+        if failed:
+            raise RunError("scan points failed: " + "; ".join(f"{r['task']}: {r['error']}" for r in failed))
+        summaries = [json.loads((out / name / SUMMARY).read_text()) for name in names]
     rows = []
-    previous_field = None
-    bar = tqdm(total=len(specs), desc="scan points", unit="point", file=stream or sys.stderr,
-               disable=stream is None)
-    for index, (point, spec) in enumerate(specs):
-        point_dir = out / "points" / f"{index:03d}"
-        summary_path = point_dir / SUMMARY
-        summary = None
-        if summary_path.exists():
-            saved = json.loads(summary_path.read_text())
-            if saved.get("config_hash") == config_hash(spec.text) and (point_dir / RESULT).exists():
-                summary = saved  # finished before: skip
-                summary["skipped"] = True
-        if summary is None:
-            start_field = previous_field if table["continuation"] else None
-            summary = relax(spec, point_dir, overwrite=True, stream=None, initial_field=start_field)
-            summary["skipped"] = False
-        if table["continuation"]:
-            previous_field = read_result(point_dir / RESULT)["field"]
+    for index, ((point, _), summary) in enumerate(zip(specs, summaries)):
         row = {"index": index}
         row.update({k: v for k, v in zip(table["keys"], point)})
         row.update({"energy": summary["energy"]})
@@ -136,12 +174,10 @@ def run_scan(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr, fi
         row.update({"hopf_charge": summary["hopf_charge"], "virial": summary["virial"],
                     "size": e["size"], "core_thickness": e["core_thickness"],
                     "boundary_fraction": e["boundary_energy_fraction"], "verdict": summary["verdict"],
+                    "label": summary.get("label", ""),
                     "converged": summary["converged"], "iterations": summary["iterations"],
-                    "skipped": summary["skipped"], "path": str(point_dir)})
+                    "skipped": skipped[index], "path": str(out / names[index])})
         rows.append(row)
-        bar.update(1)
-        bar.set_postfix_str(f"{summary['verdict']}")
-    bar.close()
     write_csv(out / "scan.csv", rows)
     if figures:
         plot_scan(rows, table["keys"][0], out / "scan.png")

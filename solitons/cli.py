@@ -40,8 +40,18 @@ def _parser() -> argparse.ArgumentParser:
     scan.add_argument("config", help="TOML configuration with a [scan] table")
     scan.add_argument("--out", help="output directory (default runs/<config name>)")
     scan.add_argument("overrides", nargs="*", metavar="dotted.key=value")
-    scan.add_argument("--quiet", action="store_true", help="no progress bar")
-    scan.add_argument("--no-figures", dest="figures", action="store_false")
+    survey = sub.add_parser("survey", help="energy against Hopf charge over families of initial data "
+                                           "([survey] table)")
+    survey.add_argument("config", help="TOML configuration with a [survey] table")
+    survey.add_argument("--out", help="output directory (default runs/<config name>)")
+    survey.add_argument("overrides", nargs="*", metavar="dotted.key=value")
+    for p in (scan, survey):
+        p.add_argument("--quiet", action="store_true", help="no progress bar")
+        p.add_argument("--no-figures", dest="figures", action="store_false")
+        p.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                       help="a running dask scheduler (tcp://host:port); default: a local cluster "
+                            "with one single-threaded worker per core; 'inline' runs in this process")
+        p.add_argument("--workers", type=int, default=None, help="local cluster size (default: cores)")
     show = sub.add_parser("show", help="write PNG figures of a result file")
     show.add_argument("result", help="a result.h5 written by relax")
     show.add_argument("--out", help="directory for the figures (default: next to the result)")
@@ -70,7 +80,7 @@ def _figures(out: Path, level=None, stream=sys.stdout):
 def main(argv: list[str] | None = None) -> int:
     parser = _parser()
     args, extra = parser.parse_known_args(argv)
-    if args.command in ("relax", "demo", "scan"):
+    if args.command in ("relax", "demo", "scan", "survey"):
         unknown = [item for item in extra if item.startswith("-") or "=" not in item]
         if unknown:
             parser.error(f"unrecognised arguments: {' '.join(unknown)}")
@@ -111,12 +121,23 @@ def main(argv: list[str] | None = None) -> int:
             from solitons.campaigns import format_table, read_scan_table, run_scan
 
             out = Path(args.out) if args.out else Path("runs") / Path(args.config).stem
-            rows = run_scan(args.config, out, args.overrides,
-                            stream=None if args.quiet else sys.stderr, figures=args.figures)
+            rows = run_scan(args.config, out, args.overrides, stream=None if args.quiet else sys.stderr,
+                            figures=args.figures, scheduler=args.scheduler, workers=args.workers)
             key = read_scan_table(args.config)["keys"][0]
             print(format_table(rows, key))
             print(f"files         {out / 'scan.csv'}" + (f"  {out / 'scan.png'}" if args.figures else ""))
             return EXIT_OK
+        if args.command == "survey":
+            from solitons.survey import run_survey, summary_lines
+
+            out = Path(args.out) if args.out else Path("runs") / Path(args.config).stem
+            rows = run_survey(args.config, out, args.overrides, scheduler=args.scheduler, workers=args.workers,
+                              stream=None if args.quiet else sys.stderr, figure=args.figures)
+            print(summary_lines(rows))
+            print(f"files         {out / 'survey.md'}  {out / 'survey.csv'}"
+                  + (f"  {out / 'survey.png'}" if args.figures else "") + f"  {out / 'catalogue.sqlite'}")
+            failed = [r for r in rows if r["status"] != "finished"]
+            return EXIT_UNCONVERGED if failed else EXIT_OK
         if args.command == "demo":
             spec = load(None, args.overrides, text=demo_config_text())
             out = Path(args.out)

@@ -16,15 +16,15 @@ from typing import Any
 
 from solitons.energy import SCHEMES
 from solitons.grid import BOUNDARIES
+from solitons.initial import FAMILIES, describe, expected_charge
 from solitons.minimise import METHODS
 from solitons.terms import BUILTIN_TERMS
-
-FAMILIES = ("axial",)
 
 DEFAULTS: dict[str, Any] = {
     "grid": {"points": 64, "spacing": 0.125, "boundary": "fixed", "scheme": "second"},
     "terms": {"dirichlet": {"coupling": 1.0}, "skyrme_faddeev": {"coupling": 1.0}},
-    "initial": {"family": "axial", "a": 1, "b": 1, "size": 1.0, "centre": [0.0, 0.0, 0.0],
+    "initial": {"family": "axial", "a": 1, "b": 1, "alpha": 1, "beta": 1, "factors": [], "parts": [],
+                "size": 1.0, "centre": [0.0, 0.0, 0.0], "orientation": [0.0, 0.0, 0.0],
                 "noise": 0.0, "seed": 0},
     "relax": {"method": "lbfgs", "max_steps": 4000, "force_tol": 1e-3, "energy_tol": 1e-10,
               "patience": 20, "time_step": 0.0, "checkpoint_every": 100,
@@ -72,19 +72,30 @@ class TermSpec:
     laplacian: bool = False
 
 
+# keys each family reads (besides size, centre, orientation)
+FAMILY_KEYS = {"axial": ("a", "b"), "torus_knot": ("alpha", "beta", "a", "b"),
+               "rational": ("alpha", "beta", "factors"), "several": ("parts",)}
+_PART_KEYS = ("family", "a", "b", "alpha", "beta", "factors", "size", "centre", "orientation")
+
+
 @dataclass(frozen=True)
 class InitialSpec:
     family: str
-    a: int
-    b: int
-    size: float
-    centre: tuple[float, float, float]
+    part: dict  # the family description read by solitons.initial.initial_field
     noise: float
     seed: int
 
     @property
     def expected_charge(self) -> int:
-        return self.a * self.b
+        return expected_charge(self.part)
+
+    @property
+    def description(self) -> str:
+        return describe(self.part)
+
+    @property
+    def size(self) -> float:
+        return self.part.get("size", 1.0)
 
 
 @dataclass(frozen=True)
@@ -299,6 +310,76 @@ def _term_spec(c: _Checker, name: str, term: dict, base_dir: Path) -> TermSpec:
                     str(resolved.resolve()), function, derivatives, laplacian)
 
 
+def _initial_part(c: _Checker, prefix: str, table: dict, top: bool = False) -> dict:
+    """Validate one family description (the [initial] table or one of its parts)."""
+    def fail(name, value, problem):
+        c.fail(f"{prefix}.{name}", value, problem)
+
+    if not top:
+        for name in table:
+            if name not in _PART_KEYS:
+                fail(name, table[name], f"unknown key; expected one of {', '.join(_PART_KEYS)}")
+    family = table.get("family", "axial")
+    allowed = FAMILIES if top else tuple(f for f in FAMILIES if f != "several")
+    if family not in allowed:
+        fail("family", family, f"must be one of {', '.join(allowed)}")
+    defaults = DEFAULTS["initial"]
+    part: dict = {"family": family}
+
+    def integer(name, minimum):
+        v = table.get(name, defaults[name])
+        if not _is_int(v) or v < minimum:
+            fail(name, v, f"must be an integer of at least {minimum}")
+        return int(v)
+
+    def triple(name):
+        v = table.get(name, defaults[name])
+        values = [v] * 3 if not isinstance(v, list) else v
+        if len(values) != 3 or not all(_is_real(x) for x in values):
+            fail(name, v, "must be a list of three finite numbers")
+        return tuple(float(x) for x in values)
+
+    if family in ("axial", "torus_knot"):
+        part["a"], part["b"] = integer("a", 1), integer("b", 1)
+    if family in ("torus_knot", "rational"):
+        # alpha >= 1 keeps W = 0 (the vacuum) at infinity, where Z1 = 0
+        part["alpha"], part["beta"] = integer("alpha", 1), integer("beta", 0)
+    if family == "rational":
+        factors = table.get("factors", [])
+        if not isinstance(factors, list) or not factors:
+            fail("factors", factors, "a rational family needs factors = [[a, b], [a, b, c], ...] "
+                 "(one per torus curve Z1^a + c Z0^b, c = 1 if left out, [a, b, re, im] for complex c)")
+        clean = []
+        for factor in factors:
+            ok = (isinstance(factor, list) and 2 <= len(factor) <= 4 and all(_is_int(x) and x >= 1 for x in factor[:2])
+                  and all(_is_real(x) for x in factor[2:]))
+            if not ok:
+                fail("factors", factor, "each factor is [a, b], [a, b, c] or [a, b, re(c), im(c)] "
+                     "with integers a, b >= 1")
+            c_value = complex(*[float(x) for x in factor[2:]]) if len(factor) > 2 else 1.0
+            if c_value == 0:
+                fail("factors", factor, "the coefficient c must not be zero")
+            clean.append([int(factor[0]), int(factor[1])] + [float(x) for x in factor[2:]])
+        keys = [(f[0], f[1], complex(*f[2:]) if len(f) > 2 else 1.0) for f in clean]
+        if len(set(keys)) != len(keys):
+            fail("factors", factors, "factors must differ (a repeated factor is not a regular map)")
+        part["factors"] = [[f[0], f[1], complex(*f[2:]) if len(f) > 2 else 1.0] for f in clean]
+    if family == "several":
+        parts = table.get("parts", [])
+        if not isinstance(parts, list) or len(parts) < 2 or not all(isinstance(p, dict) for p in parts):
+            fail("parts", parts, "several needs parts = [{family = ..., centre = [...], ...}, ...] "
+                 "with at least two entries")
+        part["parts"] = [_initial_part(c, f"{prefix}.parts[{k}]", p) for k, p in enumerate(parts)]
+        return part
+    size = table.get("size", defaults["size"])
+    if not _is_real(size) or size <= 0:
+        fail("size", size, "must be a positive number")
+    part["size"] = float(size)
+    part["centre"] = triple("centre")
+    part["orientation"] = triple("orientation")
+    return part
+
+
 def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec:
     c = _Checker(merged, sources)
     grid = GridSpec(
@@ -316,12 +397,10 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
         c.fail("terms", {}, "at least one energy term is needed")
     terms = tuple(_term_spec(c, name, term, base_dir) for name, term in merged["terms"].items())
 
+    family = c.choice("initial", "family", FAMILIES)
     initial = InitialSpec(
-        family=c.choice("initial", "family", FAMILIES),
-        a=c.integer("initial", "a", minimum=1),
-        b=c.integer("initial", "b", minimum=1),
-        size=c.real("initial", "size", positive=True),
-        centre=c.triple("initial", "centre", "real"),
+        family=family,
+        part=_initial_part(c, "initial", merged["initial"], top=True),
         noise=c.real("initial", "noise", non_negative=True),
         seed=c.integer("initial", "seed", minimum=0),
     )
@@ -348,6 +427,8 @@ def _toml_value(value: Any) -> str:
         return repr(value)
     if isinstance(value, list):
         return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    if isinstance(value, dict):
+        return "{ " + ", ".join(f"{k} = {_toml_value(v)}" for k, v in value.items()) + " }"
     return str(value)
 
 

@@ -18,8 +18,9 @@ from solitons.config import USER_KIND, RunSpec
 from solitons.diagnose import assess, snapshot
 from solitons.energy import Model
 from solitons.grid import Grid
-from solitons.initial import add_noise, axial_map
+from solitons.initial import add_noise, initial_field
 from solitons.io import read_checkpoint, write_checkpoint, write_json, write_result, write_xdmf
+from solitons.knots import solution_label
 from solitons.minimise import History, StoppingRule, minimise
 from solitons.stability import lowest_modes, probe_density
 from solitons.terms import BUILTIN_TERMS, Term
@@ -41,6 +42,9 @@ CHECKPOINT = "checkpoint.h5"
 # order) bytes per point at 96^3.  Rounded up; used to refuse grids that cannot fit.
 BYTES_PER_POINT = 2600
 
+
+# Relative tolerance of the check of the initial data's charge against its family formula.
+CHARGE_CHECK = 0.02
 
 # Steps between the slower diagnostics kept in the history (virial, Hopf charge): each
 # costs about one energy evaluation plus a few FFTs.
@@ -74,7 +78,7 @@ def make_model(spec: RunSpec, grid: Grid) -> Model:
 
 def make_initial_field(spec: RunSpec, grid: Grid) -> np.ndarray:
     init = spec.initial
-    field = axial_map(grid, init.a, init.b, init.size, init.centre)
+    field = initial_field(grid, init.part)
     if grid.boundary == "fixed":
         field = field * grid.free_mask() + np.array([0.0, 0.0, 1.0]) * (1.0 - grid.free_mask())
     return add_noise(field, grid, init.noise, init.seed)
@@ -168,6 +172,8 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         if field0.shape != grid.shape + (3,):
             raise RunError(f"initial field of shape {field0.shape} does not fit the grid {grid.shape}")
     out.mkdir(parents=True, exist_ok=True)
+    expected = spec.initial.expected_charge
+    initial_charge = hopf_charge(field0, grid)
 
     def checkpoint(field, step, hist):
         write_checkpoint(checkpoint_path, field, grid, step, hist.as_arrays(), spec.text)
@@ -182,8 +188,8 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     rule = StoppingRule(relax_spec.max_steps, relax_spec.force_tol, relax_spec.energy_tol,
                         relax_spec.patience)
     if stream is not None:
-        print(f"relaxing Q = {spec.initial.expected_charge} ({spec.initial.family} a={spec.initial.a} "
-              f"b={spec.initial.b}) on {grid.shape[0]}x{grid.shape[1]}x{grid.shape[2]}, "
+        print(f"relaxing Q = {spec.initial.expected_charge} ({spec.initial.description}) "
+              f"on {grid.shape[0]}x{grid.shape[1]}x{grid.shape[2]}, "
               f"h = {grid.spacing}, box side {grid.side}, {grid.boundary} boundary, "
               f"{spec.grid.scheme}-order scheme, method {relax_spec.method}",
               file=stream, flush=True)
@@ -212,14 +218,31 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         if stream is not None:
             print(f"  Hessian: lowest {spec.relax.hessian_modes} modes by Lanczos ...", file=stream, flush=True)
         hessian = lowest_modes(model, field, spec.relax.hessian_modes)
-    verdict = assess(field, grid, density, charge, spec.initial.expected_charge,
+    verdict = assess(field, grid, density, charge, expected,
                      virial["total"], result.status, result.history.as_arrays(),
                      result.history.energy, probe["negative"], hessian)
+    if abs(initial_charge - expected) > CHARGE_CHECK * expected:
+        verdict["warnings"].append(
+            f"the initial data measures Q = {initial_charge:.4f} against the family's {expected}: "
+            f"the grid (h = {grid.spacing[0]:g}) is too coarse for this family and size")
+    curves = solution_label(field, grid)
+    if curves["open_chains"]:
+        verdict["warnings"].append(f"{curves['open_chains']} preimage curves are cut by the box: "
+                                   "the soliton touches the border")
+    if abs(curves["linking_charge"] - charge) > 0.1 * max(1.0, abs(charge)):
+        verdict["warnings"].append(
+            f"the linking number of two preimages ({curves['linking_charge']:.3f}) disagrees with "
+            f"the Whitehead integral Q = {charge:.4f}: curves under-resolved or field not smooth")
     summary = {
         "energy": float(sum(energies.values())),
         "terms": energies,
         "hopf_charge": charge,
-        "expected_charge": spec.initial.expected_charge,
+        "expected_charge": expected,
+        "initial_charge": initial_charge,
+        "family": spec.initial.description,
+        "label": curves["label"],
+        "curves": {"components": curves["components"], "pair_linking": curves["pair_linking"],
+                   "linking_charge": curves["linking_charge"], "open_chains": curves["open_chains"]},
         "virial": virial["total"],
         "virial_per_axis": virial["per_axis"],
         "converged": result.converged,
@@ -263,7 +286,10 @@ def report(summary: dict, out_dir: str | Path, stream: TextIO = sys.stdout) -> N
         f"spacing / core thickness {e['spacing_over_thickness']:.3f} "
         f"(core thickness {e['core_thickness']:.3f}); "
         f"boundary energy {100 * e['boundary_energy_fraction']:.3f} %",
-        f"Hopf charge   Q = {summary['hopf_charge']:.6f}   (expected {summary['expected_charge']})",
+        f"Hopf charge   Q = {summary['hopf_charge']:.6f}   (expected {summary['expected_charge']} from "
+        f"{summary['family']}; initial data {summary['initial_charge']:.4f}; linking of two preimages "
+        f"{summary['curves']['linking_charge']:.3f})",
+        f"label         {summary['label']}",
         f"converged     {'yes' if summary['converged'] else 'NO'} ({summary['status']}, "
         f"{summary['iterations']} steps, {summary['evaluations']} evaluations, "
         f"max force {summary['max_force']:.2e}, {summary['wall_seconds']:.1f} s)",

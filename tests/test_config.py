@@ -99,3 +99,41 @@ def test_cli_config_error_exits_2_and_writes_nothing(tmp_path):
     assert len(lines) == 1
     assert str(path) in lines[0] and "grid.spacing" in lines[0] and "-0.2" in lines[0]
     assert not out.exists()
+
+
+FAMILY_ERRORS = [
+    ('family = "torus_knot"\nalpha = 0', "initial.alpha", "at least 1"),
+    ('family = "rational"', "initial.factors", "needs factors"),
+    ('family = "rational"\nfactors = [[1, 0]]', "initial.factors", "a, b >= 1"),
+    ('family = "rational"\nfactors = [[1, 1, 0.0]]', "initial.factors", "must not be zero"),
+    ('family = "rational"\nfactors = [[1, 1], [1, 1, 1.0]]', "initial.factors", "must differ"),
+    ('family = "several"\nparts = [{family = "axial"}]', "initial.parts", "at least two"),
+    ('family = "several"\nparts = [{family = "axial"}, {family = "axial", colour = 1}]',
+     "initial.parts[1].colour", "unknown key"),
+    ('family = "several"\nparts = [{family = "axial"}, {family = "several"}]', "initial.parts[1].family",
+     "must be one of"),
+    ('orientation = [1, 2]', "initial.orientation", "three"),
+]
+
+
+@pytest.mark.parametrize("text, key, problem", FAMILY_ERRORS)
+def test_initial_family_errors_name_the_key(tmp_path, text, key, problem):
+    with pytest.raises(ConfigError) as info:
+        load(write(tmp_path, f"[initial]\n{text}\n"))
+    assert info.value.key == key and problem in info.value.problem
+
+
+def test_family_descriptions_read_back(tmp_path):
+    """Every family survives the round trip through the merged TOML text, with its charge."""
+    text = """[initial]
+family = "several"
+parts = [
+  {family = "torus_knot", alpha = 1, beta = 1, a = 3, b = 2, size = 1.5, centre = [-3, 0, 0]},
+  {family = "rational", alpha = 1, beta = 1, factors = [[1, 1], [1, 2, -1.0, 0.5]], centre = [3, 0, 0]},
+]
+"""
+    spec = load(write(tmp_path, text))
+    assert spec.initial.expected_charge == 5 + 5
+    assert spec.initial.part["parts"][1]["factors"][1] == [1, 2, complex(-1.0, 0.5)]
+    assert load(None, text=spec.text) == spec
+    assert spec.initial.description == "knot(1,1;3,2) + rational(1,1;[1,1],[1,2,-1+0.5j])"

@@ -22,7 +22,7 @@ def test_hopf_map_position_curve_is_the_unit_circle():
     assert projection_crossings([points], (0.25, 0.15, 1.0)) == []
 
 
-@pytest.mark.parametrize("a, b", [(1, 1), (2, 1), (3, 1), (1, 2), (2, 2)])
+@pytest.mark.parametrize("a, b", [(1, 1), (2, 1), (3, 1), (1, 2), (2, 2), (4, 1)])
 def test_linking_of_two_preimages_equals_the_charge(a, b):
     """The preimages of two regular values link |Q| times (Pontryagin; textbook fact,
     REFERENCES.md), Q = a b for the axial maps (Sutcliffe 2007).  Oriented along B the

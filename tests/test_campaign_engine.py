@@ -1,0 +1,74 @@
+"""The distributed engine and the SQLite catalogue: concurrent writers, failed tasks,
+reruns.  Mechanics (common practice for campaign tools; SQLite's WAL mode and immediate
+transactions serialise writers, sqlite.org documentation)."""
+
+import sqlite3
+import sys
+
+import cloudpickle
+import pytest
+
+from solitons import catalogue
+from solitons.engine import execute, make_task, run_tasks
+
+ROWS_PER_TASK = 10
+
+
+def write_rows(task):
+    """A task that records ROWS_PER_TASK rows of its own, as fast as it can."""
+    import os
+
+    from solitons import catalogue as cat
+
+    for k in range(ROWS_PER_TASK):
+        cat.record(f"{task['root']}/{cat.CATALOGUE}", {
+            "task": f"{task['task']}/{k}", "status": "finished", "energy": float(k),
+            "worker": str(os.getpid())})
+    return {"task": task["task"], "status": "finished"}
+
+
+@pytest.fixture(scope="module")
+def by_value():
+    # the test module is not importable in the workers: ship the task function by value
+    cloudpickle.register_pickle_by_value(sys.modules[__name__])
+    yield
+    cloudpickle.unregister_pickle_by_value(sys.modules[__name__])
+
+
+def test_catalogue_survives_concurrent_writers_on_a_local_cluster(tmp_path, by_value):
+    tasks = [make_task(tmp_path, f"t{index:02d}", "", tmp_path) for index in range(24)]
+    results = run_tasks(tasks, workers=2, stream=None, function=write_rows)
+    assert [r["task"] for r in results] == [t["task"] for t in tasks]
+    rows = catalogue.rows(tmp_path / catalogue.CATALOGUE)
+    names = [r["task"] for r in rows]
+    assert len(names) == 24 * ROWS_PER_TASK and len(set(names)) == len(names)
+    assert len({r["worker"] for r in rows}) == 2  # both workers wrote
+    with sqlite3.connect(tmp_path / catalogue.CATALOGUE) as connection:
+        assert connection.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+        assert connection.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    # a rerun replaces rows instead of adding them
+    run_tasks(tasks[:3], workers=2, stream=None, function=write_rows)
+    assert len(catalogue.rows(tmp_path / catalogue.CATALOGUE)) == 24 * ROWS_PER_TASK
+
+
+GOOD = """
+[grid]
+points = 21
+spacing = 0.4
+[relax]
+max_steps = 5
+checkpoint_every = 0
+"""
+
+
+def test_a_failed_task_is_reported_and_the_others_finish(tmp_path):
+    tasks = [make_task(tmp_path, "good", GOOD, tmp_path),
+             make_task(tmp_path, "bad", GOOD.replace("points = 21", "points = -3"), tmp_path)]
+    rows = run_tasks(tasks, scheduler="inline", stream=None)
+    assert rows[0]["status"] == "finished" and rows[0]["energy"] > 0
+    assert rows[1]["status"] == "failed" and "grid.points" in rows[1]["error"]
+    recorded = {r["task"]: r for r in catalogue.rows(tmp_path / catalogue.CATALOGUE)}
+    assert recorded["bad"]["status"] == "failed" and "grid.points" in recorded["bad"]["error"]
+    assert recorded["good"]["label"] == rows[0]["label"]
+    assert (tmp_path / "good" / "result.h5").exists() and not (tmp_path / "bad").exists()
+    assert execute(tasks[1])["status"] == "failed"

@@ -1,0 +1,80 @@
+"""`solitons survey` end to end on a coarse grid (Q = 1..3): table, CSV, figure, catalogue,
+rerun skip, input errors.  Mechanics; the energies of Q = 1, 2 against the published values
+are checked on fine grids in test_published_energies.py."""
+
+import csv
+import math
+
+import matplotlib.image
+import pytest
+
+from solitons import catalogue
+from solitons.cli import main
+from solitons.config import ConfigError
+from solitons.survey import VAKULENKO_KAPITANSKI, read_survey
+
+SURVEY = """
+[grid]
+points = 33
+spacing = 0.25
+scheme = "fourth"
+[relax]
+max_steps = 60
+checkpoint_every = 0
+[survey]
+charges = [1, 2, 3]
+"""
+
+
+def test_bound_constant():
+    """(3/16)^(3/8) = 0.534 (REFERENCES.md, memory of the Kundu-Rybakov constant)."""
+    assert math.isclose(VAKULENKO_KAPITANSKI, 0.534, abs_tol=5e-4)
+
+
+def test_survey_q1_to_3_end_to_end(tmp_path, capsys):
+    config = tmp_path / "survey.toml"
+    config.write_text(SURVEY)
+    out = tmp_path / "out"
+    code = main(["survey", str(config), "--out", str(out), "--workers", "2", "--quiet"])
+    printed = capsys.readouterr().out
+    assert code == 0, printed
+    with open(out / "survey.csv") as handle:
+        rows = list(csv.DictReader(handle))
+    assert [int(r["Q"]) for r in rows] == [1, 2, 3]
+    assert [r["family"] for r in rows] == ["axial(1,1)", "axial(2,1)", "axial(3,1)"]
+    assert all(r["lowest"] == "True" for r in rows)  # one family per charge here
+    for r in rows:
+        q, energy = int(r["Q"]), float(r["energy"])
+        assert abs(float(r["measured_Q"]) - q) < 0.1 * q
+        assert math.isclose(float(r["energy_per_q34"]), energy / q**0.75)
+        assert r["label"].startswith("A:unknot")
+    table = (out / "survey.md").read_text()
+    assert "grid 33x33x33, spacing h = 0.25" in table and "fourth-order stencil" in table
+    assert table.count("| axial(") == 3
+    assert matplotlib.image.imread(out / "survey.png")[..., :3].std() > 0.05
+    first = {r["task"]: r["finished_at"] for r in catalogue.rows(out / catalogue.CATALOGUE)}
+    assert len(first) == 3 and all(r["status"] == "finished" for r in catalogue.rows(out / catalogue.CATALOGUE))
+    # a rerun relaxes nothing and reproduces the table
+    assert main(["survey", str(config), "--out", str(out), "--quiet", "--scheduler", "inline"]) == 0
+    assert {r["task"]: r["finished_at"] for r in catalogue.rows(out / catalogue.CATALOGUE)} == first
+    with open(out / "survey.csv") as handle:
+        assert [r["energy"] for r in csv.DictReader(handle)] == [r["energy"] for r in rows]
+
+
+def test_survey_input_errors(tmp_path):
+    config = tmp_path / "bad.toml"
+    config.write_text(SURVEY.replace("charges = [1, 2, 3]", "charges = [0]"))
+    with pytest.raises(ConfigError, match="survey.charges"):
+        read_survey(config)
+    config.write_text(SURVEY.replace("charges = [1, 2, 3]", "charges = [1]\nseeds = [0, 1]"))
+    with pytest.raises(ConfigError, match="initial.noise > 0"):
+        read_survey(config)
+    config.write_text(SURVEY.replace("charges = [1, 2, 3]", "charges = [9]\nfamilies = [{family = \"axial\", a = 1}]"))
+    with pytest.raises(ConfigError, match=r"no family gives the charges \[9\]"):
+        read_survey(config)
+    config.write_text(SURVEY.replace("charges = [1, 2, 3]", "families = [{family = \"torus_knot\", a = 0}]"))
+    with pytest.raises(ConfigError, match=r"survey.families\[0\].a"):
+        read_survey(config)
+    config.write_text(SURVEY + "colour = 1\n")
+    with pytest.raises(ConfigError, match="survey.colour"):
+        read_survey(config)
