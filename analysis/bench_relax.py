@@ -1,9 +1,12 @@
 """Time and evaluations to relax Q = 1 from the Hopf map, every minimiser side by side on
 one grid and one stopping rule (max tangent force < 1e-3, Euler-Lagrange units; no
-energy-change criterion), with the ratio of wall time to arrested Newton flow and the
-final energies (which must agree) and charges.
+energy-change criterion), with the ratio of wall time to arrested Newton flow on the jax
+route (the baseline) and the final energies (which must agree) and charges.  Each
+minimiser runs on the jax route and on the fused numba kernel (the flows and scipy call
+the kernel through a host callback inside their jitted steps; L-BFGS calls it directly),
+and L-BFGS also with the coarse start (relax on spacing 2h, interpolate, finish on h).
 
-    python analysis/bench_relax.py [--points 64] [--spacing 0.125] > analysis/bench_relax.txt
+    python analysis/bench_relax.py [--points 64] [--spacing 0.125] [--cases ...] > analysis/bench_relax.txt
 """
 
 from __future__ import annotations
@@ -14,7 +17,7 @@ import time
 import solitons  # noqa: F401
 from solitons.energy import Model
 from solitons.grid import Grid
-from solitons.initial import hopf_map
+from solitons.initial import hopf_map, interpolate_field
 from solitons.minimise import METHODS, StoppingRule, minimise
 from solitons.terms import BUILTIN_TERMS, Term
 from solitons.topology import hopf_charge
@@ -25,25 +28,41 @@ def main() -> None:
     parser.add_argument("--points", type=int, default=64)
     parser.add_argument("--spacing", type=float, default=0.125)
     parser.add_argument("--max-steps", type=int, default=4000)
+    parser.add_argument("--cases", default=None,
+                        help="comma-separated method:route[:coarse] list; the first is the baseline "
+                             "(default: arrested_newton:jax, then every method on both routes)")
     args = parser.parse_args()
     grid = Grid.centred(args.points, args.spacing, "fixed")
     terms = (Term("dirichlet", BUILTIN_TERMS["dirichlet"]),
              Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"]))
-    model = Model(terms, grid)
     start_field = hopf_map(grid, 1.0)
     rule = StoppingRule(max_steps=args.max_steps, force_tol=1e-3, energy_tol=0.0)
     print(f"grid {args.points}^3, h = {args.spacing}, fixed border, second-order scheme; "
           f"stop at max force < 1e-3 or {args.max_steps} steps")
-    print("method            status      steps  evals   wall_s  E               Q          time/ANF")
-    rows = {}
-    for method in ("arrested_newton",) + tuple(m for m in METHODS if m != "arrested_newton"):
+    if args.cases:
+        cases = [(c.split(":")[0], c.split(":")[1], c.endswith(":coarse")) for c in args.cases.split(",")]
+    else:
+        cases = [("arrested_newton", "jax", False)]
+        cases += [(m, b, False) for m in METHODS for b in ("jax", "numba") if (m, b) != ("arrested_newton", "jax")]
+        cases += [("lbfgs", "numba", True)]
+    print(f"method            route  coarse status      steps  evals   wall_s  E               Q          "
+          f"time/{cases[0][0]}-{cases[0][1]}")
+    baseline = None
+    for method, backend, coarse in cases:
+        model = Model(terms, grid, "second", backend)
         start = time.perf_counter()
-        result = minimise(model, start_field, method, rule)
+        field0, coarse_steps = start_field, 0
+        if coarse:
+            coarse_grid = grid.coarsened()
+            first = minimise(Model(terms, coarse_grid, "second", backend), hopf_map(coarse_grid, 1.0), method, rule)
+            field0, coarse_steps = interpolate_field(first.field, coarse_grid, grid), first.steps
+        result = minimise(model, field0, method, rule)
         wall = time.perf_counter() - start
-        rows[method] = wall
-        print(f"{method:16s}  {result.status:10s} {result.steps:6d} {result.evaluations:6d} {wall:8.1f}  "
-              f"{result.energy:.10f}  {hopf_charge(result.field, grid):.6f}  {wall / rows['arrested_newton']:6.2f}",
-              flush=True)
+        baseline = baseline or wall
+        steps = f"{coarse_steps}+{result.steps}" if coarse else str(result.steps)
+        print(f"{method:16s}  {backend:5s}  {'yes' if coarse else 'no':5s}  {result.status:10s} {steps:>8s} "
+              f"{result.evaluations:6d} {wall:8.1f}  {result.energy:.10f}  {hopf_charge(result.field, grid):.6f}  "
+              f"{wall / baseline:6.3f}", flush=True)
 
 
 if __name__ == "__main__":

@@ -45,6 +45,8 @@ def _parser() -> argparse.ArgumentParser:
     survey.add_argument("config", help="TOML configuration with a [survey] table")
     survey.add_argument("--out", help="output directory (default runs/<config name>)")
     survey.add_argument("overrides", nargs="*", metavar="dotted.key=value")
+    survey.add_argument("--table-only", action="store_true",
+                        help="relax nothing: tabulate the runs the catalogue already holds")
     for p in (scan, survey):
         p.add_argument("--quiet", action="store_true", help="no progress bar")
         p.add_argument("--no-figures", dest="figures", action="store_false")
@@ -132,11 +134,12 @@ def main(argv: list[str] | None = None) -> int:
 
             out = Path(args.out) if args.out else Path("runs") / Path(args.config).stem
             rows = run_survey(args.config, out, args.overrides, scheduler=args.scheduler, workers=args.workers,
-                              stream=None if args.quiet else sys.stderr, figure=args.figures)
+                              stream=None if args.quiet else sys.stderr, figure=args.figures,
+                              table_only=args.table_only)
             print(summary_lines(rows))
             print(f"files         {out / 'survey.md'}  {out / 'survey.csv'}"
                   + (f"  {out / 'survey.png'}" if args.figures else "") + f"  {out / 'catalogue.sqlite'}")
-            failed = [r for r in rows if r["status"] != "finished"]
+            failed = [r for r in rows if r["status"] == "failed" or (r["status"] != "finished" and not args.table_only)]
             return EXIT_UNCONVERGED if failed else EXIT_OK
         if args.command == "demo":
             spec = load(None, args.overrides, text=demo_config_text())

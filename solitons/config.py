@@ -14,11 +14,11 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from solitons.energy import SCHEMES
+from solitons.energy import BACKENDS, SCHEMES, kernel_couplings
 from solitons.grid import BOUNDARIES
 from solitons.initial import FAMILIES, describe, expected_charge
 from solitons.minimise import METHODS
-from solitons.terms import BUILTIN_TERMS
+from solitons.terms import BUILTIN_TERMS, Term
 
 DEFAULTS: dict[str, Any] = {
     "grid": {"points": 64, "spacing": 0.125, "boundary": "fixed", "scheme": "second"},
@@ -28,7 +28,8 @@ DEFAULTS: dict[str, Any] = {
                 "noise": 0.0, "seed": 0},
     "relax": {"method": "lbfgs", "max_steps": 4000, "force_tol": 1e-3, "energy_tol": 1e-10,
               "patience": 20, "time_step": 0.0, "checkpoint_every": 100,
-              "progress_seconds": 5.0, "hessian_modes": 0},
+              "progress_seconds": 5.0, "hessian_modes": 0, "backend": "auto",
+              "coarse_start": False},
 }
 
 _TERM_KEYS = ("kind", "coupling")
@@ -109,6 +110,8 @@ class RelaxSpec:
     checkpoint_every: int
     progress_seconds: float
     hessian_modes: int = 0
+    backend: str = "auto"
+    coarse_start: bool = False
 
 
 @dataclass(frozen=True)
@@ -156,6 +159,12 @@ class _Checker:
         if non_negative and v < 0:
             self.fail(key, v, "must not be negative")
         return float(v)
+
+    def boolean(self, table, name):
+        key, v = f"{table}.{name}", self.get(table, name)
+        if not isinstance(v, bool):
+            self.fail(key, v, "must be true or false")
+        return v
 
     def choice(self, table, name, options):
         key, v = f"{table}.{name}", self.get(table, name)
@@ -414,7 +423,14 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
         checkpoint_every=c.integer("relax", "checkpoint_every", minimum=0),
         progress_seconds=c.real("relax", "progress_seconds", non_negative=True),
         hessian_modes=c.integer("relax", "hessian_modes", minimum=0),
+        backend=c.choice("relax", "backend", BACKENDS),
+        coarse_start=c.boolean("relax", "coarse_start"),
     )
+    if relax.backend == "numba" and (
+            any(t.kind not in BUILTIN_TERMS for t in terms)
+            or kernel_couplings(tuple(Term(t.name, BUILTIN_TERMS[t.kind], t.coupling) for t in terms)) is None):
+        c.fail("relax.backend", "numba", "the numba kernel covers only the dirichlet and skyrme_faddeev "
+               "terms; use 'auto' (kernel where it applies, jax otherwise) or 'jax'")
     return RunSpec(grid, terms, initial, relax, dumps(merged))
 
 

@@ -111,23 +111,58 @@ class Evaluation(NamedTuple):
     gradient: jnp.ndarray  # tangent-projected dE/dn, zero on held sites, (Nx, Ny, Nz, 3)
 
 
+BACKENDS = ("auto", "jax", "numba")
+
+# (reach, weight) of the site sums each scheme combines
+SCHEME_REACHES = {"second": ((1, 1.0),), "fourth": ((1, 4.0 / 3.0), (2, -1.0 / 3.0))}
+
+
+def kernel_couplings(terms: tuple[Term, ...]) -> tuple[float, float] | None:
+    """(c2, c4) when the model is c2 * dirichlet + c4 * skyrme_faddeev with the built-in
+    kinds (the fused kernel of solitons.kernels applies), else None."""
+    from solitons.terms import BUILTIN_TERMS
+
+    couplings = {"dirichlet": 0.0, "skyrme_faddeev": 0.0}
+    for term in terms:
+        name = term.kind.name
+        if name not in couplings or term.kind is not BUILTIN_TERMS[name]:
+            return None
+        couplings[name] += term.coupling
+    return couplings["dirichlet"], couplings["skyrme_faddeev"]
+
+
 @dataclass(frozen=True)
 class Model:
     """A sum of terms on a grid with a lattice scheme.  Hashable: jitted methods take it
-    as static data."""
+    as static data.
+
+    ``backend`` chooses the route of value_and_grad, the hot path of a relaxation:
+    "numba" the fused kernel of solitons.kernels (only for c2 * dirichlet +
+    c4 * skyrme_faddeev), "jax" autodiff of the term densities, "auto" the kernel where it
+    applies and jax otherwise.  Energies, densities and the virial always use jax."""
 
     terms: tuple[Term, ...]
     grid: Grid
     scheme: str = "second"
+    backend: str = "auto"
 
     def __post_init__(self) -> None:
         if self.scheme not in SCHEMES:
             raise ValueError(f"unknown scheme {self.scheme!r}; choose from {sorted(SCHEMES)}")
+        if self.backend not in BACKENDS:
+            raise ValueError(f"unknown backend {self.backend!r}; choose from {BACKENDS}")
+        if self.backend == "numba" and kernel_couplings(self.terms) is None:
+            raise ValueError("the numba backend covers only the built-in dirichlet and skyrme_faddeev "
+                             "terms; use backend 'jax' or 'auto' for this model")
         reach = SCHEMES[self.scheme]
         if min(self.grid.shape) < 2 * reach + 3:
             raise ValueError(
                 f"grid {self.grid.shape} is smaller than the {self.scheme}-order stencil needs"
             )
+
+    @property
+    def uses_kernel(self) -> bool:
+        return self.backend != "jax" and kernel_couplings(self.terms) is not None
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -136,12 +171,27 @@ class Model:
     def spacing_array(self, dtype=jnp.float64):
         return jnp.asarray(self.grid.spacing, dtype=dtype)
 
+    def _kernel_pieces(self, field):
+        from solitons import kernels
+
+        c2, c4 = kernel_couplings(self.terms)
+        return kernels.energy_pieces(np.asarray(field), self.grid.spacing, self.grid.boundary == "periodic",
+                                     SCHEME_REACHES[self.scheme], c2, c4, NORMALISATION)
+
     def energies(self, field) -> dict[str, float]:
+        if self.uses_kernel:
+            pieces, _ = self._kernel_pieces(field)
+            c2, c4 = kernel_couplings(self.terms)
+            totals = {"dirichlet": (float(pieces[:3].sum()), c2), "skyrme_faddeev": (float(pieces[3:].sum()), c4)}
+            return {t.name: (totals[t.kind.name][0] * t.coupling / totals[t.kind.name][1]
+                             if totals[t.kind.name][1] != 0 else 0.0) for t in self.terms}
         values = _energies_jit(self, field, self.spacing_array())
         return {name: float(v) for name, v in zip(self.names, values)}
 
     def energy_density(self, field):
         """Total normalised energy density per site, (Nx, Ny, Nz)."""
+        if self.uses_kernel:
+            return self._kernel_pieces(field)[1]
         return np.asarray(_density_jit(self, field, self.spacing_array()))
 
     def energy(self, field):
@@ -153,8 +203,29 @@ class Model:
         value, grad = _value_and_grad_jit(self, field, self.spacing_array(field.dtype))
         return Evaluation(value, grad)
 
+    def evaluate(self, field: np.ndarray, out: np.ndarray | None = None) -> tuple[float, np.ndarray]:
+        """value_and_grad outside jax tracing, for loops written in numpy: (energy, gradient
+        as a numpy array, written into ``out`` if given).  The kernel route calls numba
+        directly (no host callback)."""
+        if self.uses_kernel:
+            from solitons import kernels
+
+            c2, c4 = kernel_couplings(self.terms)
+            return kernels.value_and_grad(np.asarray(field), self.grid.spacing, self.grid.boundary == "periodic",
+                                          SCHEME_REACHES[self.scheme], c2, c4, NORMALISATION, out)
+        value, grad = self.value_and_grad(field)
+        if out is None:
+            return float(value), np.asarray(grad)
+        out[...] = np.asarray(grad)
+        return float(value), out
+
     def virial(self, field) -> dict:
         """Derrick balance: h_a dE/dh_a / E per axis and in total (see module docstring)."""
+        if self.uses_kernel:
+            from solitons import kernels
+
+            total, per_axis = kernels.virial(self._kernel_pieces(field)[0])
+            return {"total": total, "per_axis": per_axis}
         spacing = self.spacing_array()
         total, dspacing = _energy_spacing_grad_jit(self, field, spacing)
         if float(total) == 0.0:  # the vacuum: no scale to balance
@@ -187,8 +258,27 @@ def _total_jit(model, field, spacing):
     return _total(model, field, spacing)
 
 
+def _kernel_value_and_grad(model: Model, field):
+    """The fused kernel through a host callback, so jitted minimiser steps can call it."""
+    from solitons import kernels
+
+    c2, c4 = kernel_couplings(model.terms)
+    periodic = model.grid.boundary == "periodic"
+    reaches = SCHEME_REACHES[model.scheme]
+
+    def host(values):
+        energy, grad = kernels.value_and_grad(np.asarray(values), model.grid.spacing, periodic, reaches,
+                                              c2, c4, NORMALISATION)
+        return np.asarray(energy, dtype=np.float64), grad
+
+    shapes = (jax.ShapeDtypeStruct((), jnp.float64), jax.ShapeDtypeStruct(field.shape, field.dtype))
+    return jax.pure_callback(host, shapes, field, vmap_method="sequential")
+
+
 @partial(jax.jit, static_argnums=0)
 def _value_and_grad_jit(model, field, spacing):
+    if model.uses_kernel:
+        return _kernel_value_and_grad(model, field)
     value, grad = jax.value_and_grad(_total, argnums=1)(model, field, spacing)
     mask = jnp.asarray(model.grid.free_mask(), dtype=field.dtype)
     return value, project_tangent(field, grad) * mask

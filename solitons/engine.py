@@ -3,13 +3,14 @@
 A task is a plain dictionary (picklable, no jax objects): the run configuration as TOML
 text, the base folder for user-term files, the campaign root, the task name (its run
 directory relative to the root) and a few labels.  `execute` runs one task in a worker:
-it relaxes the configuration into ROOT/TASK, records the row in the root's catalogue and
-returns it; an exception becomes a row with status "failed" and the error text, so one
+it relaxes the configuration into ROOT/TASK (continuing from ROOT/TASK/checkpoint.h5 when
+an interrupted campaign left one for the same configuration), records the row in the
+root's catalogue and returns it; an exception becomes a row with status "failed" and the error text, so one
 failure does not stop the others.
 
 The local cluster has one worker process per core and one thread per worker, and the
-workers' XLA is told to use one thread (``XLA_FLAGS``), so jax does not oversubscribe the
-cores.  ``scheduler="inline"`` runs the tasks one after another in this process (used
+workers' XLA and numba are told to use one thread (``XLA_FLAGS``, ``NUMBA_NUM_THREADS``),
+so they do not oversubscribe the cores.  ``scheduler="inline"`` runs the tasks one after another in this process (used
 for scans with continuation, where each point starts from the previous one).
 """
 
@@ -28,6 +29,7 @@ from solitons import catalogue
 SINGLE_THREAD_ENV = {
     "XLA_FLAGS": "--xla_cpu_multi_thread_eigen=false intra_op_parallelism_threads=1",
     "OMP_NUM_THREADS": "1",
+    "NUMBA_NUM_THREADS": "1",
     "OPENBLAS_NUM_THREADS": "1",
     "MKL_NUM_THREADS": "1",
 }
@@ -46,7 +48,7 @@ def execute(task: dict) -> dict:
     """Relax one task (in a worker) and record it in the catalogue; never raises for a
     failed run: the returned row then has status 'failed' and the error."""
     from solitons.config import load
-    from solitons.driver import config_hash, relax
+    from solitons.driver import CHECKPOINT, RunError, config_hash, relax
 
     root = Path(task["root"])
     out = root / task["task"]
@@ -59,7 +61,15 @@ def execute(task: dict) -> dict:
         row["model"] = model_text(spec)
         row["family"] = spec.initial.description
         row["expected_charge"] = spec.initial.expected_charge
-        summary = relax(spec, out, overwrite=True, stream=None)
+        summary = None
+        if (out / CHECKPOINT).exists():  # an interrupted campaign: continue this run
+            try:
+                summary = relax(spec, out, resume=True, stream=None)
+                row["resumed"] = True
+            except RunError:  # the checkpoint belongs to another configuration
+                summary = None
+        if summary is None:
+            summary = relax(spec, out, overwrite=True, stream=None)
         row.update(status="finished", energy=summary["energy"], hopf_charge=summary["hopf_charge"],
                    label=summary["label"], verdict=summary["verdict"], converged=int(summary["converged"]))
     except Exception as error:  # a failed task is reported, the campaign goes on
@@ -108,7 +118,7 @@ def run_tasks(tasks: list[dict], scheduler: str | None = None, workers: int | No
     if scheduler is None:
         n = workers or len(os.sched_getaffinity(0))
         cluster = LocalCluster(n_workers=min(n, len(tasks)), threads_per_worker=1, processes=True,
-                               dashboard_address=None, env=dict(SINGLE_THREAD_ENV), silence_logs=40)
+                               dashboard_address=":0", env=dict(SINGLE_THREAD_ENV), silence_logs=40)
         client = Client(cluster)
     else:
         client = Client(scheduler)

@@ -63,6 +63,21 @@ class Grid:
         origin = tuple(-0.5 * (n - 1) * h for n, h in zip(shape3, spacing3))
         return cls(shape3, spacing3, origin, boundary)
 
+    def coarsened(self) -> "Grid":
+        """The grid of about half the points per axis spanning the same box (spacing about
+        2h): (N - 1) h = (M - 1) h' for fixed boxes, N h = M h' (N even) for periodic ones."""
+        if self.boundary == "periodic":
+            if any(n % 2 for n in self.shape):
+                raise ValueError(f"a periodic grid {self.shape} needs even points per axis to coarsen")
+            shape = tuple(n // 2 for n in self.shape)
+            spacing = tuple(2.0 * h for h in self.spacing)
+        else:
+            shape = tuple((n - 1) // 2 + 1 for n in self.shape)
+            spacing = tuple((n - 1) * h / (m - 1) for n, h, m in zip(self.shape, self.spacing, shape))
+        origin = tuple(o + 0.5 * ((n - 1) * h - (m - 1) * hc)
+                       for o, n, h, m, hc in zip(self.origin, self.shape, self.spacing, shape, spacing))
+        return Grid(shape, spacing, origin, self.boundary)
+
     @property
     def npoints(self) -> int:
         return int(np.prod(self.shape))

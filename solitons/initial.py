@@ -187,3 +187,21 @@ def add_noise(field: np.ndarray, grid: Grid, amplitude: float, seed: int) -> np.
     rng = np.random.default_rng(seed)
     noisy = field + amplitude * rng.standard_normal(field.shape) * grid.free_mask()
     return noisy / np.linalg.norm(noisy, axis=-1, keepdims=True)
+
+
+def interpolate_field(field: np.ndarray, source: Grid, target: Grid) -> np.ndarray:
+    """Cubic-spline interpolation of a unit field from one grid of a box to another of the
+    same box (coarse-to-fine continuation), renormalised; the border of a fixed target keeps
+    the vacuum."""
+    from scipy.ndimage import map_coordinates
+
+    axes = [(np.arange(n) * h + o - so) / sh for n, h, o, so, sh
+            in zip(target.shape, target.spacing, target.origin, source.origin, source.spacing)]
+    coords = np.meshgrid(*axes, indexing="ij")
+    mode = "grid-wrap" if source.boundary == "periodic" else "nearest"
+    values = np.stack([map_coordinates(field[..., c], coords, order=3, mode=mode) for c in range(3)], -1)
+    values /= np.linalg.norm(values, axis=-1, keepdims=True)
+    if target.boundary == "fixed":
+        mask = target.free_mask()
+        values = values * mask + np.array([0.0, 0.0, 1.0]) * (1.0 - mask)
+    return values

@@ -131,9 +131,11 @@ def _slug(text: str) -> str:
 
 
 def run_survey(path, out_dir, overrides=(), scheduler: str | None = None, workers: int | None = None,
-               stream: TextIO | None = sys.stderr, figure: bool = True) -> list[dict]:
+               stream: TextIO | None = sys.stderr, figure: bool = True, table_only: bool = False) -> list[dict]:
     """Relax every task of the survey in ``path`` (skipping those already in the
-    catalogue with the same configuration) and write survey.csv, survey.md, survey.png."""
+    catalogue with the same configuration) and write survey.csv, survey.md, survey.png.
+    ``table_only``: relax nothing, tabulate what the catalogue holds (the others are
+    listed as not run), e.g. while a long survey is still going."""
     table, entries = read_survey(path, overrides)
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
@@ -153,12 +155,15 @@ def run_survey(path, out_dir, overrides=(), scheduler: str | None = None, worker
         print(f"survey: {len(entries)} runs for Q = {table['charges']} ({len(entries) - len(tasks)} finished "
               f"before); grid {'x'.join(map(str, g.points))}, h = {g.spacing[0]:g}, {g.boundary} boundary, "
               f"{g.scheme}-order stencil", file=stream, flush=True)
-    run_tasks(tasks, scheduler=scheduler, workers=workers, stream=stream,
-              describe=lambda row: f"{row['task']} {row.get('verdict') or row.get('status')}")
+    if not table_only:
+        run_tasks(tasks, scheduler=scheduler, workers=workers, stream=stream,
+                  describe=lambda row: f"{row['task']} {row.get('verdict') or row.get('status')}")
     recorded = {row["task"]: row for row in catalogue.rows(out / catalogue.CATALOGUE)}
     rows = []
     for (q, part, seed, spec), name in zip(entries, names):
-        row = recorded.get(name, {"status": "missing"})
+        row = recorded.get(name, {"status": "not run"})
+        if row.get("status") == "finished" and row.get("config_hash") != config_hash(spec.text):
+            row = {"status": "not run", "error": "the catalogue holds a run of another configuration"}
         entry = {"Q": q, "family": describe(part), "seed": seed, "task": name, "status": row.get("status"),
                  "error": row.get("error") or ""}
         if row.get("status") == "finished":
@@ -202,7 +207,8 @@ def markdown_table(rows: list[dict], spec) -> str:
              "|---|---|---|---|---|---|---|---|---|"]
     for r in rows:
         if r["status"] != "finished":
-            lines.append(f"| {r['Q']} | {r['family']} | FAILED: {r['error']} | | | | | | |")
+            what = "NOT RUN" if r["status"] == "not run" else f"FAILED: {r['error']}"
+            lines.append(f"| {r['Q']} | {r['family']} | {what} | | | | | | |")
             continue
         star = " *" if r["lowest"] else ""
         lines.append(f"| {r['Q']}{star} | {r['family']} | {r['label']} | {r['energy']:.4f} | "
@@ -265,7 +271,7 @@ def summary_lines(rows: list[dict]) -> str:
     for r in rows:
         head = f"Q {r['Q']}{'*' if r['lowest'] else ' '} {r['family']:34s} "
         if r["status"] != "finished":
-            lines.append(head + f"FAILED {r['error']}")
+            lines.append(head + ("NOT RUN" if r["status"] == "not run" else f"FAILED {r['error']}"))
             continue
         lines.append(head + f"{r['label']:32s} E {r['energy']:.4f}  E/Q^(3/4) {r['energy_per_q34']:.4f}  "
                      f"Q {r['measured_Q']:.3f}  {r['verdict']}{'' if r['converged'] else ' (NOT converged)'}")

@@ -2,6 +2,7 @@
 reruns.  Mechanics (common practice for campaign tools; SQLite's WAL mode and immediate
 transactions serialise writers, sqlite.org documentation)."""
 
+import json
 import sqlite3
 import sys
 
@@ -72,3 +73,26 @@ def test_a_failed_task_is_reported_and_the_others_finish(tmp_path):
     assert recorded["good"]["label"] == rows[0]["label"]
     assert (tmp_path / "good" / "result.h5").exists() and not (tmp_path / "bad").exists()
     assert execute(tasks[1])["status"] == "failed"
+
+
+def test_an_interrupted_task_continues_from_its_checkpoint(tmp_path):
+    """A campaign killed mid-run leaves checkpoint.h5; the rerun of that task continues the
+    step count instead of starting again (mechanics)."""
+    from solitons.config import load
+    from solitons.driver import make_grid, make_initial_field
+    from solitons.io import write_checkpoint
+    from solitons.minimise import History
+
+    spec = load(None, text=GOOD)
+    grid = make_grid(spec)
+    history = History()
+    for step in range(1, 8):
+        history.append(step, 1.0, 1.0, 0.1 * step)
+    (tmp_path / "run").mkdir()
+    write_checkpoint(tmp_path / "run" / "checkpoint.h5", make_initial_field(spec, grid), grid, 7,
+                     history.as_arrays(), spec.text)
+    row = execute(make_task(tmp_path, "run", GOOD, tmp_path))
+    assert row["status"] == "finished" and row.get("resumed")
+    summary = json.loads((tmp_path / "run" / "summary.json").read_text())
+    assert summary["iterations"] == 12  # 7 before the interruption + max_steps = 5
+    assert not (tmp_path / "run" / "checkpoint.h5").exists()

@@ -59,6 +59,12 @@ def test_survey_q1_to_3_end_to_end(tmp_path, capsys):
     assert {r["task"]: r["finished_at"] for r in catalogue.rows(out / catalogue.CATALOGUE)} == first
     with open(out / "survey.csv") as handle:
         assert [r["energy"] for r in csv.DictReader(handle)] == [r["energy"] for r in rows]
+    # tabulating while a larger survey is unfinished: the missing charge is listed, nothing runs
+    config.write_text(SURVEY.replace("charges = [1, 2, 3]", "charges = [1, 2, 3, 4]"))
+    assert main(["survey", str(config), "--out", str(out), "--quiet", "--table-only"]) == 0
+    assert {r["task"]: r["finished_at"] for r in catalogue.rows(out / catalogue.CATALOGUE)} == first
+    table = (out / "survey.md").read_text()
+    assert "| 4 | axial(2,2) | NOT RUN |" in table and "| 4 | axial(4,1) | NOT RUN |" in table
 
 
 def test_survey_input_errors(tmp_path):
