@@ -1,5 +1,5 @@
-"""Minimisers on the product of spheres, each a small loop around one jitted
-value_and_grad.
+"""Minimisers on the product of spheres, each a small loop around one evaluation of the
+energy and its tangent gradient (Model.evaluate or the jitted Model.value_and_grad).
 
 * ``lbfgs``: limited-memory BFGS on the product of spheres (Nocedal & Wright, Numerical
   Optimization, 2nd ed., Alg. 7.4 two-loop recursion): the search direction is built from
