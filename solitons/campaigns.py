@@ -21,14 +21,13 @@ import csv
 import json
 import sys
 import time
-import tomllib
 from pathlib import Path
 from typing import TextIO
 
 import numpy as np
 
 from solitons import catalogue
-from solitons.config import ConfigError, _is_real, load
+from solitons.config import ConfigError, _is_real, load, read_campaign_table
 from solitons.driver import RESULT, SUMMARY, RunError, config_hash, relax
 from solitons.engine import make_task, model_text, run_tasks
 from solitons.io import read_result
@@ -39,18 +38,7 @@ SCAN_KEYS = ("parameter", "values", "start", "stop", "num", "continuation")
 def read_scan_table(path: str | Path) -> dict:
     """The validated [scan] table: keys (list), values (list of tuples), continuation."""
     source = str(path)
-    try:
-        data = tomllib.loads(Path(path).read_text())
-    except OSError as error:
-        raise ConfigError(source, "(file)", str(path), f"cannot be read: {error.strerror}") from None
-    except tomllib.TOMLDecodeError as error:
-        raise ConfigError(source, "(syntax)", "", f"not valid TOML: {error}") from None
-    table = data.get("scan")
-    if not isinstance(table, dict):
-        raise ConfigError(source, "scan", table, "a scan needs a [scan] table")
-    for key in table:
-        if key not in SCAN_KEYS:
-            raise ConfigError(source, f"scan.{key}", table[key], f"unknown key; expected {', '.join(SCAN_KEYS)}")
+    table = read_campaign_table(path, "scan", SCAN_KEYS, "a scan")
     keys = table.get("parameter")
     keys = [keys] if isinstance(keys, str) else keys
     if not keys or not all(isinstance(k, str) and "." in k for k in keys):

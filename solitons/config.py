@@ -269,6 +269,25 @@ def load(path: str | Path | None, overrides: list[str] = (), text: str | None = 
     return validate(merged, sources, Path(base_dir))
 
 
+def read_campaign_table(path: str | Path, name: str, allowed: tuple[str, ...], what: str) -> dict:
+    """The ``[name]`` table of a campaign file (scan, survey), its keys checked against
+    ``allowed``; file, syntax and key errors as ConfigError."""
+    source = str(path)
+    try:
+        data = tomllib.loads(Path(path).read_text())
+    except OSError as error:
+        raise ConfigError(source, "(file)", str(path), f"cannot be read: {error.strerror}") from None
+    except tomllib.TOMLDecodeError as error:
+        raise ConfigError(source, "(syntax)", "", f"not valid TOML: {error}") from None
+    table = data.get(name)
+    if not isinstance(table, dict):
+        raise ConfigError(source, name, table, f"{what} needs a [{name}] table")
+    for key in table:
+        if key not in allowed:
+            raise ConfigError(source, f"{name}.{key}", table[key], f"unknown key; expected {', '.join(allowed)}")
+    return table
+
+
 def _term_spec(c: _Checker, name: str, term: dict, base_dir: Path) -> TermSpec:
 
     key = f"terms.{name}"

@@ -26,14 +26,13 @@ import csv
 import json
 import re
 import sys
-import tomllib
 from pathlib import Path
 from typing import TextIO
 
 import numpy as np
 
 from solitons import catalogue
-from solitons.config import ConfigError, _toml_value, load
+from solitons.config import ConfigError, _toml_value, load, read_campaign_table
 from solitons.driver import RESULT, SUMMARY, config_hash
 from solitons.engine import make_task, run_tasks
 from solitons.initial import describe
@@ -75,18 +74,7 @@ def read_survey(path: str | Path, overrides=()) -> tuple[dict, list]:
     """Validate the [survey] table and every task's configuration before any work:
     (table, [(charge, family dict, seed, RunSpec)])."""
     source = str(path)
-    try:
-        data = tomllib.loads(Path(path).read_text())
-    except OSError as error:
-        raise ConfigError(source, "(file)", str(path), f"cannot be read: {error.strerror}") from None
-    except tomllib.TOMLDecodeError as error:
-        raise ConfigError(source, "(syntax)", "", f"not valid TOML: {error}") from None
-    table = data.get("survey")
-    if not isinstance(table, dict):
-        raise ConfigError(source, "survey", table, "a survey needs a [survey] table")
-    for key in table:
-        if key not in SURVEY_KEYS:
-            raise ConfigError(source, f"survey.{key}", table[key], f"unknown key; expected {', '.join(SURVEY_KEYS)}")
+    table = read_campaign_table(path, "survey", SURVEY_KEYS, "a survey")
     charges = table.get("charges", list(range(1, 9)))
     if (not isinstance(charges, list) or not charges
             or not all(isinstance(q, int) and not isinstance(q, bool) and q >= 1 for q in charges)):
