@@ -7,8 +7,9 @@ same run with numpy.  Default model (dirichlet + skyrme_faddeev, second-order sc
 N = 64, 96, 128 on both routes (the fused numba kernel and jax autodiff), the fourth-order
 scheme at 128, and every built-in term alone at N = 64 (jax; the kernel covers only the
 default model's two terms).  The kernel's work arrays are a padded component-major copy
-of the field (3 values per site), the 18 derivatives of pass one and the density (1):
-with the gradient (3) about 25 values, 200 bytes per site in float64.
+of the field (3 values per site), the density (1) and, per thread, a ring of 2 r + 1
+planes of the 18 derivatives (a few MB): with the gradient (3) about 7 values, 56 bytes
+per site in float64.
 
     python analysis/bench_energy.py > analysis/bench_energy.txt
 """

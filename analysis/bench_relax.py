@@ -14,7 +14,10 @@ from __future__ import annotations
 import argparse
 import time
 
+import numpy as np
+
 import solitons  # noqa: F401
+from solitons import minimise as minimise_module
 from solitons.energy import Model
 from solitons.grid import Grid
 from solitons.initial import hopf_map, interpolate_field
@@ -29,7 +32,8 @@ def main() -> None:
     parser.add_argument("--spacing", type=float, default=0.125)
     parser.add_argument("--max-steps", type=int, default=4000)
     parser.add_argument("--cases", default=None,
-                        help="comma-separated method:route[:coarse] list; the first is the baseline "
+                        help="comma-separated method:route[:coarse][:f32] list (f32: L-BFGS history stored "
+                             "in float32); the first is the baseline "
                              "(default: arrested_newton:jax, then every method on both routes)")
     args = parser.parse_args()
     grid = Grid.centred(args.points, args.spacing, "fixed")
@@ -40,15 +44,18 @@ def main() -> None:
     print(f"grid {args.points}^3, h = {args.spacing}, fixed border, second-order scheme; "
           f"stop at max force < 1e-3 or {args.max_steps} steps")
     if args.cases:
-        cases = [(c.split(":")[0], c.split(":")[1], c.endswith(":coarse")) for c in args.cases.split(",")]
+        cases = [(c.split(":")[0], c.split(":")[1], "coarse" in c.split(":")[2:], "f32" in c.split(":")[2:])
+                 for c in args.cases.split(",")]
     else:
-        cases = [("arrested_newton", "jax", False)]
-        cases += [(m, b, False) for m in METHODS for b in ("jax", "numba") if (m, b) != ("arrested_newton", "jax")]
-        cases += [("lbfgs", "numba", True)]
-    print(f"method            route  coarse status      steps  evals   wall_s  E               Q          "
+        cases = [("arrested_newton", "jax", False, False)]
+        cases += [(m, b, False, False) for m in METHODS for b in ("jax", "numba")
+                  if (m, b) != ("arrested_newton", "jax")]
+        cases += [("lbfgs", "numba", True, False), ("lbfgs", "numba", False, True)]
+    print(f"method            route  coarse hist status      steps  evals   wall_s  E               Q          "
           f"time/{cases[0][0]}-{cases[0][1]}")
     baseline = None
-    for method, backend, coarse in cases:
+    for method, backend, coarse, f32 in cases:
+        minimise_module.HISTORY_DTYPE = np.float32 if f32 else np.float64
         model = Model(terms, grid, "second", backend)
         start = time.perf_counter()
         field0, coarse_steps = start_field, 0
@@ -60,7 +67,8 @@ def main() -> None:
         wall = time.perf_counter() - start
         baseline = baseline or wall
         steps = f"{coarse_steps}+{result.steps}" if coarse else str(result.steps)
-        print(f"{method:16s}  {backend:5s}  {'yes' if coarse else 'no':5s}  {result.status:10s} {steps:>8s} "
+        print(f"{method:16s}  {backend:5s}  {'yes' if coarse else 'no':5s}  {'f32' if f32 else 'f64'}  "
+              f"{result.status:10s} {steps:>8s} "
               f"{result.evaluations:6d} {wall:8.1f}  {result.energy:.10f}  {hopf_charge(result.field, grid):.6f}  "
               f"{wall / baseline:6.3f}", flush=True)
 

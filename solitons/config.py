@@ -21,7 +21,7 @@ from solitons.minimise import METHODS
 from solitons.terms import BUILTIN_TERMS, Term
 
 DEFAULTS: dict[str, Any] = {
-    "grid": {"points": 64, "spacing": 0.125, "boundary": "fixed", "scheme": "second"},
+    "grid": {"points": 64, "spacing": 0.125, "boundary": "fixed", "scheme": "second", "stretch": 0.0},
     "terms": {"dirichlet": {"coupling": 1.0}, "skyrme_faddeev": {"coupling": 1.0}},
     "initial": {"family": "axial", "a": 1, "b": 1, "alpha": 1, "beta": 1, "factors": [], "parts": [],
                 "size": 1.0, "centre": [0.0, 0.0, 0.0], "orientation": [0.0, 0.0, 0.0],
@@ -59,6 +59,7 @@ class GridSpec:
     spacing: tuple[float, float, float]
     boundary: str
     scheme: str
+    stretch: tuple[float, float, float] = (0.0, 0.0, 0.0)
 
 
 @dataclass(frozen=True)
@@ -172,7 +173,7 @@ class _Checker:
             self.fail(key, v, f"must be one of {', '.join(options)}")
         return v
 
-    def triple(self, table, name, kind, positive=False):
+    def triple(self, table, name, kind, positive=False, non_negative=False):
         key, v = f"{table}.{name}", self.get(table, name)
         values = [v] * 3 if not isinstance(v, list) else v
         if len(values) != 3:
@@ -183,6 +184,8 @@ class _Checker:
                 self.fail(key, v, f"must hold {'integers' if kind == 'int' else 'finite numbers'}")
             if positive and item <= 0:
                 self.fail(key, v, "must be positive")
+            if non_negative and item < 0:
+                self.fail(key, v, "must be zero (uniform axis) or a positive length")
         return tuple(int(x) if kind == "int" else float(x) for x in values)
 
 
@@ -415,7 +418,11 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
         spacing=c.triple("grid", "spacing", "real", positive=True),
         boundary=c.choice("grid", "boundary", BOUNDARIES),
         scheme=c.choice("grid", "scheme", tuple(SCHEMES)),
+        stretch=c.triple("grid", "stretch", "real", non_negative=True),
     )
+    if any(grid.stretch) and grid.boundary == "periodic":
+        c.fail("grid.stretch", merged["grid"]["stretch"], "a stretched grid needs boundary = \"fixed\" "
+               "(it exists to reach far from the soliton; a periodic box has no far region)")
     smallest = 2 * SCHEMES[grid.scheme] + 3
     if min(grid.points) < smallest:
         c.fail("grid.points", merged["grid"]["points"],
@@ -450,6 +457,9 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
             or kernel_couplings(tuple(Term(t.name, BUILTIN_TERMS[t.kind], t.coupling) for t in terms)) is None):
         c.fail("relax.backend", "numba", "the numba kernel covers only the dirichlet and skyrme_faddeev "
                "terms; use 'auto' (kernel where it applies, jax otherwise) or 'jax'")
+    if any(grid.stretch) and relax.hessian_modes:
+        c.fail("relax.hessian_modes", relax.hessian_modes, "the Hessian study needs a uniform grid "
+               "(grid.stretch = 0); on a stretched grid its eigenproblem would need the site volumes as a metric")
     return RunSpec(grid, terms, initial, relax, dumps(merged))
 
 

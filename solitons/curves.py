@@ -85,7 +85,6 @@ def preimage_chains(field: np.ndarray, grid: Grid, value=(0.0, 0.0, -1.0), b_fie
     for a, b in segments:
         neighbours[a].append(b)
         neighbours[b].append(a)
-    origin = np.asarray(grid.origin)
     spacing = np.asarray(grid.spacing)
     chains, seen = [], set()
     # start open chains at their ends first, then the closed loops
@@ -119,10 +118,10 @@ def preimage_chains(field: np.ndarray, grid: Grid, value=(0.0, 0.0, -1.0), b_fie
     oriented = []
     for index_coords, closed in chains:
         b_at = np.stack([map_coordinates(b_field[..., k], index_coords.T, order=1) for k in range(3)], -1)
-        tangent = np.gradient(index_coords * spacing, axis=0)
+        tangent = np.gradient(index_coords * spacing, axis=0)  # computational coordinates, like B
         if np.sum(tangent * b_at) < 0:
             index_coords = index_coords[::-1]
-        oriented.append((index_coords * spacing + origin, closed))
+        oriented.append((grid.index_to_position(index_coords), closed))
     return oriented
 
 

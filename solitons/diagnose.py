@@ -32,10 +32,9 @@ Verdicts (first that applies):
 
 from __future__ import annotations
 
-import jax.numpy as jnp
 import numpy as np
 
-from solitons.grid import Grid, one_sided_differences, pad
+from solitons.grid import Grid
 
 STABLE = "stable"
 UNWOUND = "unwound"
@@ -58,31 +57,42 @@ BOUNDARY_SPREAD = 0.05
 
 def core_thickness(field: np.ndarray, grid: Grid) -> float:
     """pi / max |grad n| with the lattice's forward differences (model length units);
-    inf for a uniform field."""
-    padded = pad(jnp.asarray(field), grid.boundary, 1)
-    forward, _ = one_sided_differences(padded, 1, grid.shape, grid.spacing)
-    gradient_sq = sum(np.sum(np.asarray(f) ** 2, axis=-1) for f in forward)
-    steepest = float(np.sqrt(gradient_sq.max()))
+    inf for a uniform field.  One numba pass: the per-step monitor calls it."""
+    from solitons.kernels import max_forward_gradient_sq
+
+    factors = [grid.link_factors(a, 1)[0] / h for a, h in enumerate(grid.spacing)]
+    steepest = float(np.sqrt(max_forward_gradient_sq(np.ascontiguousarray(field, dtype=np.float64), *factors,
+                                                     grid.boundary == "periodic")))
     return np.pi / steepest if steepest > 1e-12 else float("inf")
 
 
+def _energy_per_site(energy_density, grid: Grid) -> np.ndarray:
+    weights = np.abs(np.asarray(energy_density))
+    return weights * grid.site_weights() if grid.stretched else weights
+
+
 def boundary_energy_fraction(energy_density: np.ndarray, grid: Grid, width: int = 2) -> float:
-    total = float(np.abs(energy_density).sum())
+    """Share of |energy| on the ``width`` outermost layers of sites."""
+    per_site = _energy_per_site(energy_density, grid)
+    total = float(per_site.sum())
     if total == 0.0:
         return 0.0
-    return float(np.abs(energy_density[grid.border_shell_mask(width)]).sum()) / total
+    return float(per_site[grid.border_shell_mask(width)].sum()) / total
 
 
 def energy_size(energy_density: np.ndarray, grid: Grid) -> float:
-    """RMS radius of |energy density| about its centre (model length units)."""
-    weights = np.abs(np.asarray(energy_density))
+    """RMS radius of |energy density| about its centre (model length units).  From the
+    three marginal distributions (exact: r^2 is a sum over axes), so no coordinate mesh."""
+    weights = _energy_per_site(energy_density, grid)
     total = weights.sum()
     if total == 0:
         return 0.0
-    coords = grid.mesh()
-    centre = [float((w * weights).sum() / total) for w in coords]
-    r2 = sum((c - c0) ** 2 for c, c0 in zip(coords, centre))
-    return float(np.sqrt((r2 * weights).sum() / total))
+    r2 = 0.0
+    for axis, x in enumerate(grid.axes()):
+        marginal = weights.sum(axis=tuple(a for a in range(3) if a != axis))
+        centre = float((marginal * x).sum() / total)
+        r2 += float((marginal * (x - centre) ** 2).sum() / total)
+    return float(np.sqrt(r2))
 
 
 def snapshot(field, grid: Grid, energy_density) -> dict:

@@ -58,7 +58,7 @@ class RunError(RuntimeError):
 
 
 def make_grid(spec: RunSpec) -> Grid:
-    return Grid.centred(spec.grid.points, spec.grid.spacing, spec.grid.boundary)
+    return Grid.centred(spec.grid.points, spec.grid.spacing, spec.grid.boundary, spec.grid.stretch)
 
 
 def make_terms(spec: RunSpec) -> tuple[Term, ...]:
@@ -116,12 +116,33 @@ def coarse_stage(spec: RunSpec, grid: Grid, model: Model, rule: StoppingRule, st
     return report, interpolate_field(result.field, coarse_grid, grid)
 
 
+# model lengths: wider border cells on a stretched grid are warned about (analysis/
+# stretched_grid_study.txt: Q = 1 held with cells up to 5.3 wide, unwound with 17.4)
+STRETCH_CELL_LIMIT = 8.0
+MONITOR_CHARGE_SPACING = 0.125  # the monitor's Hopf charge uses every s-th site while s h <= this
+
+
+def monitor_charge(field, grid: Grid) -> float:
+    """Hopf charge for the monitor: on every s-th site per axis, the largest s with
+    s h <= MONITOR_CHARGE_SPACING (s = 1 on grids of h > 0.0625).  It only watches for
+    unwinding (a jump of the charge by about one); the reported charge uses every site.
+    At 128^3 the full-resolution FFTs cost about a second per call (measured)."""
+    stride = max(1, int(MONITOR_CHARGE_SPACING / max(grid.spacing) + 1e-9))
+    if stride == 1 or grid.boundary == "periodic":
+        return hopf_charge(field, grid)
+    field = np.asarray(field)[::stride, ::stride, ::stride]
+    coarse = Grid(field.shape[:3], tuple(stride * h for h in grid.spacing), grid.origin, grid.boundary,
+                  grid.stretch)
+    return hopf_charge(field, coarse)
+
+
 def monitor_values(model: Model, field) -> dict:
     """The slow diagnostics kept in the history every MONITOR_EVERY steps."""
-    density = model.energy_density(field)
-    values = snapshot(np.asarray(field), model.grid, density)
-    values["virial"] = model.virial(field)["total"]
-    values["hopf_charge"] = hopf_charge(field, model.grid)
+    field = np.asarray(field)
+    density, virial = model.density_and_virial(field)
+    values = snapshot(field, model.grid, density)
+    values["virial"] = virial["total"]
+    values["hopf_charge"] = monitor_charge(field, model.grid)
     return values
 
 
@@ -222,7 +243,8 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     if stream is not None:
         print(f"relaxing Q = {spec.initial.expected_charge} ({spec.initial.description}) "
               f"on {grid.shape[0]}x{grid.shape[1]}x{grid.shape[2]}, "
-              f"h = {grid.spacing}, box side {grid.side}, {grid.boundary} boundary, "
+              f"h = {grid.spacing}{' at the centre, stretch ' + str(grid.stretch) if grid.stretched else ''}, "
+              f"box side {tuple(round(x, 4) for x in grid.side)}, {grid.boundary} boundary, "
               f"{spec.grid.scheme}-order scheme, method {relax_spec.method}",
               file=stream, flush=True)
     start = time.perf_counter()
@@ -262,6 +284,11 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         verdict["warnings"].append(
             f"the initial data measures Q = {initial_charge:.4f} against the family's {expected}: "
             f"the grid (h = {grid.spacing[0]:g}) is too coarse for this family and size")
+    if grid.stretched and grid.largest_cell() > STRETCH_CELL_LIMIT:
+        verdict["warnings"].append(
+            f"the outermost cells of the stretched grid are {grid.largest_cell():.2f} model lengths wide: a soliton "
+            "that drifts or spreads into them can unwind through the lattice (seen: Q = 1 on 81^3, h = 0.25, "
+            "stretch 2, cells 17.4 wide; held up to 5.3); use a larger stretch or fewer points")
     if coarse is not None and not coarse["used"]:
         verdict["warnings"].append(f"the coarse start was discarded ({coarse['reason']}); "
                                    "the run started from the initial data on the fine grid")
@@ -291,7 +318,7 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         "evaluations": result.evaluations,
         "max_force": result.max_force,
         "grid": {"shape": list(grid.shape), "spacing": list(grid.spacing),
-                 "origin": list(grid.origin), "boundary": grid.boundary,
+                 "origin": list(grid.origin), "boundary": grid.boundary, "stretch": list(grid.stretch),
                  "scheme": spec.grid.scheme, "box_side": list(grid.side)},
         "method": relax_spec.method,
         "backend": "numba kernel" if model.uses_kernel else "jax",

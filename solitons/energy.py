@@ -27,14 +27,14 @@ continuum energy, negative for a soliton squeezed by its box (E4 > E2).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from functools import partial
+from functools import lru_cache, partial
 from typing import NamedTuple
 
 import jax
 import jax.numpy as jnp
 import numpy as np
 
-from solitons.grid import Grid, one_sided_differences, pad, shifted
+from solitons.grid import Grid, grid_differences, pad, shifted
 from solitons.terms import Term
 
 NORMALISATION = 1.0 / (32.0 * np.sqrt(2.0) * np.pi**2)
@@ -56,12 +56,20 @@ def _octant_average(term, centre, forward, backward, lap):
 def _site_densities(field, spacing, grid: Grid, terms: tuple[Term, ...], reach: int, generic: bool):
     padded = pad(field, grid.boundary, reach)
     centre = shifted(padded, reach, grid.shape, 0, 0)
-    forward, backward = one_sided_differences(padded, reach, grid.shape, spacing, reach)
+    forward, backward = grid_differences(padded, reach, grid, spacing, reach)
     lap = None
     if any(term.kind.needs_laplacian for term in terms):
-        # (n(x + r) - 2 n(x) + n(x - r)) / (r h)^2, summed over axes
-        lap = sum((f - b) / (reach * spacing[axis])
-                  for axis, (f, b) in enumerate(zip(forward, backward)))
+        # (n(x + r) - 2 n(x) + n(x - r)) / (r h)^2, summed over axes; on a stretched grid
+        # the difference of the two one-sided derivatives over r h dx/dxi at the site
+        lap = 0.0
+        for axis, (f, b) in enumerate(zip(forward, backward)):
+            inverse = 1.0
+            if grid.stretched:
+                view = [1, 1, 1, 1]
+                view[axis] = grid.shape[axis]
+                xi = grid.xi_axes()[axis]
+                inverse = jnp.asarray((1.0 / grid.jacobian(xi, axis)).reshape(view), dtype=f.dtype)
+            lap = lap + (f - b) * inverse / (reach * spacing[axis])
     densities = []
     for term in terms:
         if term.kind.lattice is not None and not generic:
@@ -74,7 +82,7 @@ def _site_densities(field, spacing, grid: Grid, terms: tuple[Term, ...], reach: 
 
 def term_densities(field, spacing, grid: Grid, terms, scheme: str = "second", generic=False):
     """Per-term lattice energy densities (tuple of (Nx, Ny, Nz) arrays, normalised, energy per
-    unit volume): summed over sites and multiplied by the cell volume they give the energy."""
+    unit volume): summed over sites times `Grid.site_volumes` they give the energy."""
     if scheme == "second":
         densities = _site_densities(field, spacing, grid, terms, 1, generic)
     elif scheme == "fourth":
@@ -94,6 +102,9 @@ def term_energies(field, spacing, grid: Grid, terms, scheme: str = "second", gen
     every term (used to check the fast routes)."""
     volume = spacing[0] * spacing[1] * spacing[2]
     densities = term_densities(field, spacing, grid, terms, scheme, generic)
+    if grid.stretched:
+        weights = jnp.asarray(grid.site_weights(), dtype=field.dtype)
+        return tuple(volume * jnp.sum(d * weights) for d in densities)
     return tuple(volume * jnp.sum(d) for d in densities)
 
 
@@ -129,6 +140,16 @@ def kernel_couplings(terms: tuple[Term, ...]) -> tuple[float, float] | None:
             return None
         couplings[name] += term.coupling
     return couplings["dirichlet"], couplings["skyrme_faddeev"]
+
+
+@lru_cache(maxsize=16)
+def grid_metric(grid: Grid, reaches: tuple[int, ...]):
+    """The stretched grid's factors in the form `solitons.kernels` takes: metric[reach][axis]
+    = (forward link factors, backward link factors, site dx/dxi), or None when uniform."""
+    if not grid.stretched:
+        return None
+    return {r: tuple(grid.link_factors(a, r) + (grid.jacobian(grid.xi_axes()[a], a),) for a in range(3))
+            for r in reaches}
 
 
 @dataclass(frozen=True)
@@ -176,7 +197,11 @@ class Model:
 
         c2, c4 = kernel_couplings(self.terms)
         return kernels.energy_pieces(np.asarray(field), self.grid.spacing, self.grid.boundary == "periodic",
-                                     SCHEME_REACHES[self.scheme], c2, c4, NORMALISATION)
+                                     SCHEME_REACHES[self.scheme], c2, c4, NORMALISATION, self.metric)
+
+    @property
+    def metric(self):
+        return grid_metric(self.grid, tuple(r for r, _ in SCHEME_REACHES[self.scheme]))
 
     def energies(self, field) -> dict[str, float]:
         if self.uses_kernel:
@@ -193,6 +218,17 @@ class Model:
         if self.uses_kernel:
             return self._kernel_pieces(field)[1]
         return np.asarray(_density_jit(self, field, self.spacing_array()))
+
+    def density_and_virial(self, field) -> tuple[np.ndarray, dict]:
+        """`energy_density` and `virial` together: one kernel pass on the kernel route (the
+        per-step monitor of a relaxation asks for both)."""
+        if self.uses_kernel:
+            from solitons import kernels
+
+            pieces, density = self._kernel_pieces(field)
+            total, per_axis = kernels.virial(pieces)
+            return density, {"total": total, "per_axis": per_axis}
+        return self.energy_density(field), self.virial(field)
 
     def energy(self, field):
         return _total_jit(self, field, self.spacing_array())
@@ -212,7 +248,7 @@ class Model:
 
             c2, c4 = kernel_couplings(self.terms)
             return kernels.value_and_grad(np.asarray(field), self.grid.spacing, self.grid.boundary == "periodic",
-                                          SCHEME_REACHES[self.scheme], c2, c4, NORMALISATION, out)
+                                          SCHEME_REACHES[self.scheme], c2, c4, NORMALISATION, out, self.metric)
         value, grad = self.value_and_grad(field)
         if out is None:
             return float(value), np.asarray(grad)
@@ -235,8 +271,17 @@ class Model:
 
     def force_scale(self) -> float:
         """Divide a gradient by this to get the Euler-Lagrange expression of the
-        un-normalised density (grid independent): NORMALISATION * cell volume."""
+        un-normalised density (grid independent): NORMALISATION * cell volume (of the
+        centre site of a stretched grid; see `site_scale`)."""
         return NORMALISATION * self.grid.cell_volume
+
+    def site_scale(self):
+        """Per-site `force_scale`: a float on a uniform grid, on a stretched one an
+        (Nx, Ny, Nz, 1) array NORMALISATION * site volume (the force is the gradient per
+        unit physical volume)."""
+        if not self.grid.stretched:
+            return self.force_scale()
+        return NORMALISATION * self.grid.site_volumes()[..., None]
 
 
 def _total(model: Model, field, spacing):
@@ -268,7 +313,7 @@ def _kernel_value_and_grad(model: Model, field):
 
     def host(values):
         energy, grad = kernels.value_and_grad(np.asarray(values), model.grid.spacing, periodic, reaches,
-                                              c2, c4, NORMALISATION)
+                                              c2, c4, NORMALISATION, metric=model.metric)
         return np.asarray(energy, dtype=np.float64), grad
 
     shapes = (jax.ShapeDtypeStruct((), jnp.float64), jax.ShapeDtypeStruct(field.shape, field.dtype))

@@ -9,52 +9,12 @@ import numpy as np
 
 
 @nb.njit(parallel=True, cache=True)
-def dot(a, b):
-    total = 0.0
-    for p in nb.prange(a.shape[0]):
-        total += a[p, 0] * b[p, 0] + a[p, 1] * b[p, 1] + a[p, 2] * b[p, 2]
-    return total
-
-
-@nb.njit(parallel=True, cache=True)
-def axpy_dot(q, alpha, y, s):
-    """q <- q - alpha y in place; returns s . q (the new q)."""
-    total = 0.0
-    for p in nb.prange(q.shape[0]):
-        q0 = q[p, 0] - alpha * y[p, 0]
-        q1 = q[p, 1] - alpha * y[p, 1]
-        q2 = q[p, 2] - alpha * y[p, 2]
-        q[p, 0], q[p, 1], q[p, 2] = q0, q1, q2
-        total += s[p, 0] * q0 + s[p, 1] * q1 + s[p, 2] * q2
-    return total
-
-
-@nb.njit(parallel=True, cache=True)
-def scale_dot(q, factor, y):
-    """q <- factor q in place; returns y . q."""
-    total = 0.0
-    for p in nb.prange(q.shape[0]):
-        q0, q1, q2 = factor * q[p, 0], factor * q[p, 1], factor * q[p, 2]
-        q[p, 0], q[p, 1], q[p, 2] = q0, q1, q2
-        total += y[p, 0] * q0 + y[p, 1] * q1 + y[p, 2] * q2
-    return total
-
-
-@nb.njit(parallel=True, cache=True)
-def tangent_direction(field, q, mask, out):
-    """out <- -P_n(q) on free sites (mask 1), 0 on held ones; returns max |out| (NaN if any
-    entry is not finite)."""
+def max_weighted_norm(a, weights):
+    """Largest per-site length times the site's weight; NaN if any entry is not finite."""
     largest = 0.0
     poison = 0.0
-    for p in nb.prange(q.shape[0]):
-        n0, n1, n2 = field[p, 0], field[p, 1], field[p, 2]
-        along = q[p, 0] * n0 + q[p, 1] * n1 + q[p, 2] * n2
-        m = mask[p]
-        v0 = -m * (q[p, 0] - along * n0)
-        v1 = -m * (q[p, 1] - along * n1)
-        v2 = -m * (q[p, 2] - along * n2)
-        out[p, 0], out[p, 1], out[p, 2] = v0, v1, v2
-        length = np.sqrt(v0 * v0 + v1 * v1 + v2 * v2)
+    for p in nb.prange(a.shape[0]):
+        length = weights[p] * np.sqrt(a[p, 0] * a[p, 0] + a[p, 1] * a[p, 1] + a[p, 2] * a[p, 2])
         largest = max(largest, length)
         poison += length - length
     return largest + poison
@@ -109,26 +69,112 @@ def curvature_pair(new_field, step, alpha, gradient, new_gradient, mask, inv_sca
     return sy, ss, yy
 
 
-def two_loop(field, gradient, inv_scale, s_hist, y_hist, rho, order, mask, q, out):
-    """L-BFGS direction -P(H g) (Nocedal & Wright Alg. 7.4) in 2 m + 1 fused passes.
-    ``order`` lists the history slots oldest first; q is a work array; returns the
-    largest per-site step length."""
-    np.multiply(gradient, inv_scale, out=q)
-    if not order:
-        return tangent_direction(field, q, mask, out)
-    newest = order[-1]
-    alphas = {}
-    projection = dot(s_hist[newest], q)
-    for position in range(len(order) - 1, -1, -1):  # newest to oldest
-        slot = order[position]
-        alphas[slot] = rho[slot] * projection
-        following = s_hist[order[position - 1]] if position > 0 else y_hist[order[0]]
-        projection = axpy_dot(q, alphas[slot], y_hist[slot], following)
-    sy = 1.0 / rho[newest]
-    yy = dot(y_hist[newest], y_hist[newest])
-    projection = scale_dot(q, sy / yy, y_hist[order[0]])
-    for position, slot in enumerate(order):  # oldest to newest
-        beta = rho[slot] * projection
-        following = y_hist[order[position + 1]] if position + 1 < len(order) else s_hist[slot]
-        projection = axpy_dot(q, beta - alphas[slot], s_hist[slot], following)
-    return tangent_direction(field, q, mask, out)
+# ---- compact L-BFGS (Byrd, Nocedal & Schnabel, Math. Prog. 63 (1994) 129, eq. 3.13;
+# Nocedal & Wright, Numerical Optimization, 2nd ed., eq. 7.24): the direction is
+# H g = gamma W g + S p + gamma W Y q with (p, q) from k x k matrices, so one pass reads
+# the history for the 2 k dot products and one more forms the direction; the two-loop
+# recursion (Nocedal & Wright Alg. 7.4; the reference in tests/test_lbfgs_compact.py)
+# needs 2 k passes, each reading three arrays and writing one.
+
+CHUNK = 3 * 2048  # entries per block: a block of every history vector stays in L1/L2
+
+
+@nb.njit(parallel=True, cache=True, fastmath={"reassoc", "contract", "nsz"})
+def history_dots(gradient, s_hist, y_hist, slots, newest, weights):
+    """One pass over the history, flat (entry-wise, so the inner loops vectorise): per slot
+    s_i . g, y_i . W g, s_i . y_new, y_i . W y_new, with gradient (3P,), histories (m, 3P),
+    W = diag(weights) per entry (3P,) or 1 when weights is empty, y_new = y_hist[newest].
+    Returns a (4, k) array in the order of ``slots``.  Inner loops run over block views
+    from index 0 (a loop from a run-time start stayed scalar)."""
+    k = slots.shape[0]
+    size = gradient.shape[0]
+    blocks = (size + CHUNK - 1) // CHUNK
+    weighted = weights.shape[0] > 0
+    partial = np.zeros((blocks, 4, k))
+    for t in nb.prange(blocks):
+        lo, hi = t * CHUNK, min(size, (t + 1) * CHUNK)
+        g, n = gradient[lo:hi], y_hist[newest, lo:hi]  # n may be float32: products below in float64
+        w = weights[lo:hi] if weighted else gradient[lo:lo]
+        for a in range(k):
+            s_row, y_row = s_hist[slots[a], lo:hi], y_hist[slots[a], lo:hi]
+            sg = yg = sn = yn = 0.0
+            if weighted:
+                for e in range(hi - lo):
+                    sg += s_row[e] * g[e]
+                    yg += w[e] * y_row[e] * g[e]
+                    sn += np.float64(s_row[e]) * n[e]
+                    yn += w[e] * y_row[e] * n[e]
+            else:
+                for e in range(hi - lo):
+                    sg += s_row[e] * g[e]
+                    yg += y_row[e] * g[e]
+                    sn += np.float64(s_row[e]) * n[e]
+                    yn += np.float64(y_row[e]) * n[e]
+            partial[t, 0, a], partial[t, 1, a], partial[t, 2, a], partial[t, 3, a] = sg, yg, sn, yn
+    return partial.sum(axis=0)
+
+
+@nb.njit(parallel=True, cache=True, fastmath={"contract", "nsz"})
+def compact_direction(field, gradient, scale, gamma, s_hist, y_hist, slots, p_coef, q_coef, weights, mask,
+                      out):
+    """out <- -P_n(gamma W (g~ + sum_i q_i y_i) + sum_i p_i s_i) on free sites, g~ = scale g;
+    all arrays flat (3P,) (histories (m, 3P), mask per entry); returns (largest per-site
+    length of out, g . out).  NaN propagates.  Blocks: the linear combination entry-wise
+    (vectorised) into a block buffer, then the tangent projection site by site."""
+    k = slots.shape[0]
+    size = gradient.shape[0]
+    blocks = (size + CHUNK - 1) // CHUNK
+    weighted = weights.shape[0] > 0
+    largest = np.zeros(blocks)
+    poisons = np.zeros(blocks)
+    slope = np.zeros(blocks)
+    for t in nb.prange(blocks):
+        lo, hi = t * CHUNK, min(size, (t + 1) * CHUNK)
+        g, n, m, o = gradient[lo:hi], field[lo:hi], mask[lo:hi], out[lo:hi]
+        u = np.empty(hi - lo)
+        v = np.zeros(hi - lo)
+        for e in range(hi - lo):
+            u[e] = scale * g[e]
+        for a in range(k):
+            s_row, y_row, pa, qa = s_hist[slots[a], lo:hi], y_hist[slots[a], lo:hi], p_coef[a], q_coef[a]
+            for e in range(hi - lo):
+                u[e] += qa * y_row[e]
+                v[e] += pa * s_row[e]
+        if weighted:
+            w = weights[lo:hi]
+            for e in range(hi - lo):
+                u[e] = gamma * w[e] * u[e] + v[e]
+        else:
+            for e in range(hi - lo):
+                u[e] = gamma * u[e] + v[e]
+        best = 0.0
+        poison = 0.0
+        tilt = 0.0
+        for site in range((hi - lo) // 3):
+            e = 3 * site
+            h0, h1, h2 = u[e], u[e + 1], u[e + 2]
+            n0, n1, n2 = n[e], n[e + 1], n[e + 2]
+            along = h0 * n0 + h1 * n1 + h2 * n2
+            d0, d1, d2 = -m[e] * (h0 - along * n0), -m[e] * (h1 - along * n1), -m[e] * (h2 - along * n2)
+            o[e], o[e + 1], o[e + 2] = d0, d1, d2
+            length = np.sqrt(d0 * d0 + d1 * d1 + d2 * d2)
+            best = max(best, length)
+            poison += length - length
+            tilt += g[e] * d0 + g[e + 1] * d1 + g[e + 2] * d2
+        largest[t] = best
+        poisons[t] = poison
+        slope[t] = tilt
+    return largest.max() + poisons.sum(), slope.sum()  # numba's max() skips NaN; the sum does not
+
+
+def compact_coefficients(a, b, sy, yy, gamma):
+    """(p, q) of the compact form from a = S^T g~, b = Y^T W g~ (time order, oldest first),
+    sy[i, j] = s_i . y_j and yy[i, j] = y_i . W y_j:
+    q = -R^-1 a,  p = R^-T ((D + gamma Y^T W Y) R^-1 a - gamma b),  R = upper(S^T Y)."""
+    import scipy.linalg
+
+    r = np.triu(sy)
+    r_inv_a = scipy.linalg.solve_triangular(r, a, lower=False)
+    inner = np.diag(np.diag(sy)) @ r_inv_a + gamma * (yy @ r_inv_a) - gamma * b
+    p = scipy.linalg.solve_triangular(r, inner, lower=False, trans="T")
+    return p, -r_inv_a

@@ -39,8 +39,15 @@ class Grid:
     spacing: tuple[float, float, float]
     origin: tuple[float, float, float]
     boundary: str = "fixed"
+    stretch: tuple[float, float, float] = (0.0, 0.0, 0.0)
 
     def __post_init__(self) -> None:
+        stretch = (float(self.stretch),) * 3 if np.isscalar(self.stretch) else tuple(map(float, self.stretch))
+        object.__setattr__(self, "stretch", stretch)
+        if len(stretch) != 3 or any(not np.isfinite(s) or s < 0 for s in stretch):
+            raise ValueError(f"stretch must be three lengths >= 0 (0: uniform axis), got {self.stretch}")
+        if self.boundary == "periodic" and any(stretch):
+            raise ValueError("a stretched grid needs the fixed boundary (a periodic box has no far region)")
         if len(self.shape) != 3 or len(self.spacing) != 3 or len(self.origin) != 3:
             raise ValueError("shape, spacing and origin each need three entries")
         if any(int(n) != n or n < 1 for n in self.shape):
@@ -56,12 +63,13 @@ class Grid:
         shape: tuple[int, int, int] | int,
         spacing: tuple[float, float, float] | float,
         boundary: str = "fixed",
+        stretch: tuple[float, float, float] | float = 0.0,
     ) -> Grid:
         """A grid whose sites are symmetric about the coordinate origin."""
         shape3 = (shape,) * 3 if isinstance(shape, int) else tuple(int(n) for n in shape)
         spacing3 = (float(spacing),) * 3 if np.isscalar(spacing) else tuple(map(float, spacing))
         origin = tuple(-0.5 * (n - 1) * h for n, h in zip(shape3, spacing3))
-        return cls(shape3, spacing3, origin, boundary)
+        return cls(shape3, spacing3, origin, boundary, stretch)
 
     def coarsened(self) -> "Grid":
         """The grid of about half the points per axis spanning the same box (spacing about
@@ -76,7 +84,58 @@ class Grid:
             spacing = tuple((n - 1) * h / (m - 1) for n, h, m in zip(self.shape, self.spacing, shape))
         origin = tuple(o + 0.5 * ((n - 1) * h - (m - 1) * hc)
                        for o, n, h, m, hc in zip(self.origin, self.shape, self.spacing, shape, spacing))
-        return Grid(shape, spacing, origin, self.boundary)
+        return Grid(shape, spacing, origin, self.boundary, self.stretch)
+
+    @property
+    def stretched(self) -> bool:
+        return any(self.stretch)
+
+    def computational(self) -> "Grid":
+        """The uniform grid of the computational coordinate xi (itself when not stretched):
+        topological integrals, being coordinate invariant, are evaluated on it."""
+        return Grid(self.shape, self.spacing, self.origin, self.boundary) if self.stretched else self
+
+    def xi_axes(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Computational coordinates xi of the sites along each axis."""
+        return tuple(o + h * np.arange(n) for n, h, o in zip(self.shape, self.spacing, self.origin))
+
+    def to_physical(self, xi, axis: int):
+        """x(xi) on ``axis``."""
+        s = self.stretch[axis]
+        return s * np.sinh(np.asarray(xi) / s) if s else np.asarray(xi, dtype=float)
+
+    def jacobian(self, xi, axis: int):
+        """dx/dxi on ``axis`` at computational coordinate(s) ``xi``."""
+        s = self.stretch[axis]
+        return np.cosh(np.asarray(xi) / s) if s else np.ones_like(np.asarray(xi, dtype=float))
+
+    def largest_cell(self) -> float:
+        """Widest physical spacing between neighbouring sites (at the border of a stretched
+        grid, h on a uniform one)."""
+        return float(max(np.max(np.diff(x)) if len(x) > 1 else h for x, h in zip(self.axes(), self.spacing)))
+
+    def link_factors(self, axis: int, reach: int) -> tuple[np.ndarray, np.ndarray]:
+        """(forward, backward) factors 1 / (dx/dxi) at the midpoints of the links from each
+        site to the site ``reach`` above and below along ``axis`` (ones when uniform)."""
+        xi = self.xi_axes()[axis]
+        half = 0.5 * reach * self.spacing[axis]
+        return 1.0 / self.jacobian(xi + half, axis), 1.0 / self.jacobian(xi - half, axis)
+
+    def site_weights(self) -> np.ndarray:
+        """Product of dx/dxi over the three axes at each site, (Nx, Ny, Nz); ones when uniform."""
+        j = [self.jacobian(xi, a) for a, xi in enumerate(self.xi_axes())]
+        return j[0][:, None, None] * j[1][None, :, None] * j[2][None, None, :]
+
+    def site_volumes(self) -> np.ndarray:
+        """Physical volume carried by each site, (Nx, Ny, Nz): energies are sums of density
+        times this."""
+        return self.cell_volume * self.site_weights()
+
+    def index_to_position(self, index) -> np.ndarray:
+        """Physical positions (..., 3) of fractional site indices (..., 3)."""
+        index = np.asarray(index, dtype=float)
+        return np.stack([self.to_physical(self.origin[a] + self.spacing[a] * index[..., a], a)
+                         for a in range(3)], axis=-1)
 
     @property
     def npoints(self) -> int:
@@ -84,6 +143,8 @@ class Grid:
 
     @property
     def cell_volume(self) -> float:
+        """h_x h_y h_z: the volume of a site of a uniform grid (of the centre site of a
+        stretched one)."""
         return float(np.prod(self.spacing))
 
     @property
@@ -92,11 +153,11 @@ class Grid:
         distance for fixed ones."""
         if self.boundary == "periodic":
             return tuple(n * h for n, h in zip(self.shape, self.spacing))
-        return tuple((n - 1) * h for n, h in zip(self.shape, self.spacing))
+        return tuple(float(x[-1] - x[0]) for x in self.axes())
 
     def axes(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Site coordinates along each axis, shapes (Nx,), (Ny,), (Nz,)."""
-        return tuple(o + h * np.arange(n) for n, h, o in zip(self.shape, self.spacing, self.origin))
+        """Physical site coordinates along each axis, shapes (Nx,), (Ny,), (Nz,)."""
+        return tuple(self.to_physical(xi, a) for a, xi in enumerate(self.xi_axes()))
 
     def mesh(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Coordinate arrays x, y, z of shape (Nx, Ny, Nz)."""
@@ -137,20 +198,37 @@ def shifted(padded: jnp.ndarray, width: int, shape: tuple[int, int, int], axis: 
     return padded[tuple(index)]
 
 
-def one_sided_differences(padded, width, shape, spacing, reach: int = 1):
+def one_sided_differences(padded, width, shape, spacing, reach: int = 1, factors=None):
     """Forward and backward differences over ``reach`` sites along each axis.
 
     Returns two tuples (forward, backward) of three arrays of shape (Nx, Ny, Nz, C):
     forward[i](x) = (n(x + r e_i) - n(x)) / (r h_i), backward[i](x) = (n(x) - n(x - r e_i)) / (r h_i).
     ``spacing`` may be a traced array (the virial differentiates with respect to it).
+    ``factors`` (stretched grids): per axis the (forward, backward) 1-D arrays of
+    `Grid.link_factors`, multiplying the differences along that axis.
     """
     centre = shifted(padded, width, shape, 0, 0)
     forward, backward = [], []
     for axis in range(3):
         step = reach * spacing[axis]
-        forward.append((shifted(padded, width, shape, axis, reach) - centre) / step)
-        backward.append((centre - shifted(padded, width, shape, axis, -reach)) / step)
+        f = (shifted(padded, width, shape, axis, reach) - centre) / step
+        b = (centre - shifted(padded, width, shape, axis, -reach)) / step
+        if factors is not None:
+            view = [1, 1, 1, 1]
+            view[axis] = shape[axis]
+            f = f * jnp.asarray(factors[axis][0].reshape(view), dtype=f.dtype)
+            b = b * jnp.asarray(factors[axis][1].reshape(view), dtype=b.dtype)
+        forward.append(f)
+        backward.append(b)
     return tuple(forward), tuple(backward)
+
+
+def grid_differences(padded, width, grid: Grid, spacing, reach: int = 1):
+    """`one_sided_differences` with the link factors of a stretched ``grid``."""
+    factors = None
+    if grid.stretched:
+        factors = tuple(grid.link_factors(axis, reach) for axis in range(3))
+    return one_sided_differences(padded, width, grid.shape, spacing, reach, factors)
 
 
 def spectral_derivative(values: jnp.ndarray, grid: Grid, axis: int) -> jnp.ndarray:

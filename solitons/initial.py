@@ -195,6 +195,10 @@ def interpolate_field(field: np.ndarray, source: Grid, target: Grid) -> np.ndarr
     the vacuum."""
     from scipy.ndimage import map_coordinates
 
+    if source.stretch != target.stretch:
+        raise ValueError(f"interpolation between grids of different stretch ({source.stretch} -> {target.stretch})"
+                         " is not supported")
+    # in the computational coordinate xi (the physical one on uniform grids)
     axes = [(np.arange(n) * h + o - so) / sh for n, h, o, so, sh
             in zip(target.shape, target.spacing, target.origin, source.origin, source.spacing)]
     coords = np.meshgrid(*axes, indexing="ij")

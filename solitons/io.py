@@ -6,7 +6,9 @@ checkpoint.
 
 ``result.h5`` layout::
 
-    /field            float64 (Nx, Ny, Nz, 3), attrs spacing (3,), origin (3,), boundary
+    /field            float64 (Nx, Ny, Nz, 3), attrs spacing (3,), origin (3,), boundary,
+                      stretch (3,) (0: uniform axis; see solitons.grid: spacing and origin
+                      are then those of the computational coordinate xi)
     /energy_density   float64 (Nx, Ny, Nz), normalised energy per unit volume
     /coordinates      float64 (Nx, Ny, Nz, 3), site positions (for the XDMF sidecar)
     /history/{step, energy, force, seconds}
@@ -66,6 +68,7 @@ def _write_field(h5, field, grid: Grid):
     dataset.attrs["spacing"] = np.asarray(grid.spacing, dtype=np.float64)
     dataset.attrs["origin"] = np.asarray(grid.origin, dtype=np.float64)
     dataset.attrs["boundary"] = grid.boundary
+    dataset.attrs["stretch"] = np.asarray(grid.stretch, dtype=np.float64)
 
 
 def _write_history(h5, history_arrays: dict):
@@ -105,8 +108,9 @@ def write_result(path, field, grid: Grid, energy_density, summary: dict, history
 
 def _grid_from(dataset) -> Grid:
     shape = tuple(int(n) for n in dataset.shape[:3])
+    stretch = tuple(map(float, dataset.attrs.get("stretch", (0.0, 0.0, 0.0))))  # absent before stretched grids
     return Grid(shape, tuple(map(float, dataset.attrs["spacing"])),
-                tuple(map(float, dataset.attrs["origin"])), str(dataset.attrs["boundary"]))
+                tuple(map(float, dataset.attrs["origin"])), str(dataset.attrs["boundary"]), stretch)
 
 
 def read_result(path) -> dict:

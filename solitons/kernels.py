@@ -13,16 +13,20 @@ M_a = sum_s d_a^s (d_a^s)^T and S_a = tr M_a,
 
     de/dd_a^s = c2 d_a^s + (c4 / 2) sum_{b != a} (S_b - M_b) d_a^s.
 
-Pass 1 (parallel over x-planes) writes, per site, the derivatives with respect to the six
-differences; pass 2 gathers them into dE/dn (each difference is (n(x + r e_a) - n(x)) /
-(r h_a)), projects on the tangent plane and zeroes the held border.  The energy of each
-x-plane is accumulated in float64 whatever the field's precision.
+Per x-plane, `_plane_derivatives` writes the derivatives of each site's density with
+respect to its six differences (18 values per site), and `_plane_gradient` gathers those
+of a plane and its neighbour planes into dE/dn (each difference is (n(x + r e_a) - n(x))
+/ (r h_a), times the link factor on a stretched grid), projects on the tangent plane and
+zeroes the held border.  `_fused` runs both in one sweep per thread-slab with a ring of
+2 r + 1 derivative planes, so the derivatives stay in cache.  The energy of each x-plane
+is accumulated in float64 whatever the field's precision.
 
 Terms other than these two, and user terms, use the jax route.
 """
 
 from __future__ import annotations
 
+import llvmlite.binding as llvm
 import numba as nb
 import numpy as np
 
@@ -30,6 +34,15 @@ KERNEL_TERMS = ("dirichlet", "skyrme_faddeev")
 
 
 _FAST = {"nsz", "arcp", "contract", "afn", "reassoc"}  # fastmath without "no NaN / no Inf"
+
+# The inner loops touch some 40 row views of the same arrays; LLVM vectorises a loop only
+# after runtime checks that its pointers do not overlap, and by default gives up beyond 8
+# such checks ("too many memory checks needed"), leaving the kernel scalar.  Raising the
+# limits (process-wide LLVM options; they only allow more checks, never change results)
+# made pass one about 1.5x faster in analysis/bench_energy.py.
+VECTORISE_OPTIONS = ("-runtime-memory-check-threshold=2000", "-vectorize-memory-check-threshold=2000")
+for _option in VECTORISE_OPTIONS:
+    llvm.set_option("", _option)
 
 
 @nb.njit(parallel=True, cache=True)
@@ -64,183 +77,304 @@ def _to_padded_planes(field, r, periodic, buf):
                     buf[2, pi, pj, pk] = 1.0
 
 
-@nb.njit(parallel=True, cache=True, fastmath=_FAST)
-def _pass_one(buf, r, hx, hy, hz, c2, c4, deriv, parts, density):
-    """deriv[3 * row + c, i + r, j + r, k + r] = d e / d (d_row)_c at site (i, j, k), rows
-    (x+, x-, y+, y-, z+, z-); parts[i] = the plane's sums of the six pieces of e
-    (c2 e2 along x, y, z; c4 e4 of the pairs xy, xz, yz); density = e (unnormalised)."""
-    nx, ny, nz = buf.shape[1] - 2 * r, buf.shape[2] - 2 * r, buf.shape[3] - 2 * r
+@nb.njit(cache=True, fastmath=_FAST)
+def _plane_derivatives(buf, r, i, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, plane, density, store_density):
+    """For x-plane i: plane[3 * row + c, j + r, k + r] = d (w e) / d (d_row)_c at site (i, j, k),
+    rows (x+, x-, y+, y-, z+, z-); returns the plane's sums of the six pieces of w e
+    (c2 e2 along x, y, z; c4 e4 of the pairs xy, xz, yz); density[i] = e (unnormalised) when
+    ``store_density``.  fx[i] (bx[i]) multiplies the forward (backward) difference of the
+    field values along x at site i: 1 / (r h_x) on a uniform grid, 1 / (r h_x dx/dxi) at
+    the link's midpoint on a stretched one; likewise y, z.  w = wx[i] wy[j] wz[k] is the
+    site's dx/dxi product.
+
+    The k loop reads and writes 1-D row views (v<component><neighbour>, d<row>) so that its
+    index is a plain counter from 0: LLVM then vectorises it (see VECTORISE_OPTIONS)."""
+    ny, nz = buf.shape[2] - 2 * r, buf.shape[3] - 2 * r
     real = buf.dtype.type  # every constant in the field's precision (float32 * float64 would promote)
-    ix, iy, iz = real(1.0 / (r * hx)), real(1.0 / (r * hy)), real(1.0 / (r * hz))
     c2, c4 = real(c2), real(c4)
     h, half, quarter, two = real(0.5 * c4), real(0.5), real(0.25), real(2.0)
-    for i in nb.prange(nx):
-        p0 = p1 = p2 = p3 = p4 = p5 = 0.0
-        ci = i + r
-        for j in range(ny):
-            cj = j + r
-            r0 = r1 = r2 = r3 = r4 = r5 = buf.dtype.type(0.0)
-            for k in range(nz):
-                ck = k + r
-                n0, n1, n2 = buf[0, ci, cj, ck], buf[1, ci, cj, ck], buf[2, ci, cj, ck]
-                xf0 = (buf[0, ci + r, cj, ck] - n0) * ix
-                xf1 = (buf[1, ci + r, cj, ck] - n1) * ix
-                xf2 = (buf[2, ci + r, cj, ck] - n2) * ix
-                xb0 = (n0 - buf[0, ci - r, cj, ck]) * ix
-                xb1 = (n1 - buf[1, ci - r, cj, ck]) * ix
-                xb2 = (n2 - buf[2, ci - r, cj, ck]) * ix
-                yf0 = (buf[0, ci, cj + r, ck] - n0) * iy
-                yf1 = (buf[1, ci, cj + r, ck] - n1) * iy
-                yf2 = (buf[2, ci, cj + r, ck] - n2) * iy
-                yb0 = (n0 - buf[0, ci, cj - r, ck]) * iy
-                yb1 = (n1 - buf[1, ci, cj - r, ck]) * iy
-                yb2 = (n2 - buf[2, ci, cj - r, ck]) * iy
-                zf0 = (buf[0, ci, cj, ck + r] - n0) * iz
-                zf1 = (buf[1, ci, cj, ck + r] - n1) * iz
-                zf2 = (buf[2, ci, cj, ck + r] - n2) * iz
-                zb0 = (n0 - buf[0, ci, cj, ck - r]) * iz
-                zb1 = (n1 - buf[1, ci, cj, ck - r]) * iz
-                zb2 = (n2 - buf[2, ci, cj, ck - r]) * iz
-                # M_a = f f^T + b b^T (entries 00 11 22 01 02 12), S_a = tr M_a
-                x00 = xf0 * xf0 + xb0 * xb0
-                x11 = xf1 * xf1 + xb1 * xb1
-                x22 = xf2 * xf2 + xb2 * xb2
-                x01 = xf0 * xf1 + xb0 * xb1
-                x02 = xf0 * xf2 + xb0 * xb2
-                x12 = xf1 * xf2 + xb1 * xb2
-                y00 = yf0 * yf0 + yb0 * yb0
-                y11 = yf1 * yf1 + yb1 * yb1
-                y22 = yf2 * yf2 + yb2 * yb2
-                y01 = yf0 * yf1 + yb0 * yb1
-                y02 = yf0 * yf2 + yb0 * yb2
-                y12 = yf1 * yf2 + yb1 * yb2
-                z00 = zf0 * zf0 + zb0 * zb0
-                z11 = zf1 * zf1 + zb1 * zb1
-                z22 = zf2 * zf2 + zb2 * zb2
-                z01 = zf0 * zf1 + zb0 * zb1
-                z02 = zf0 * zf2 + zb0 * zb2
-                z12 = zf1 * zf2 + zb1 * zb2
-                sx = x00 + x11 + x22
-                sy = y00 + y11 + y22
-                sz = z00 + z11 + z22
-                xy = x00 * y00 + x11 * y11 + x22 * y22 + two * (x01 * y01 + x02 * y02 + x12 * y12)
-                xz = x00 * z00 + x11 * z11 + x22 * z22 + two * (x01 * z01 + x02 * z02 + x12 * z12)
-                yz = y00 * z00 + y11 * z11 + y22 * z22 + two * (y01 * z01 + y02 * z02 + y12 * z12)
-                exy = quarter * c4 * (sx * sy - xy)
-                exz = quarter * c4 * (sx * sz - xz)
-                eyz = quarter * c4 * (sy * sz - yz)
-                r0 += half * c2 * sx
-                r1 += half * c2 * sy
-                r2 += half * c2 * sz
-                r3 += exy
-                r4 += exz
-                r5 += eyz
-                density[i, j, k] = half * c2 * (sx + sy + sz) + exy + exz + eyz
-                # K_x = c2 + h (S_y + S_z) - h (M_y + M_z), and cyclic; times 1 / (r h_a)
-                dg = (c2 + h * (sy + sz)) * ix
-                k00 = dg - h * (y00 + z00) * ix
-                k11 = dg - h * (y11 + z11) * ix
-                k22 = dg - h * (y22 + z22) * ix
-                k01 = -h * (y01 + z01) * ix
-                k02 = -h * (y02 + z02) * ix
-                k12 = -h * (y12 + z12) * ix
-                deriv[0, ci, cj, ck] = k00 * xf0 + k01 * xf1 + k02 * xf2
-                deriv[1, ci, cj, ck] = k01 * xf0 + k11 * xf1 + k12 * xf2
-                deriv[2, ci, cj, ck] = k02 * xf0 + k12 * xf1 + k22 * xf2
-                deriv[3, ci, cj, ck] = k00 * xb0 + k01 * xb1 + k02 * xb2
-                deriv[4, ci, cj, ck] = k01 * xb0 + k11 * xb1 + k12 * xb2
-                deriv[5, ci, cj, ck] = k02 * xb0 + k12 * xb1 + k22 * xb2
-                dg = (c2 + h * (sx + sz)) * iy
-                k00 = dg - h * (x00 + z00) * iy
-                k11 = dg - h * (x11 + z11) * iy
-                k22 = dg - h * (x22 + z22) * iy
-                k01 = -h * (x01 + z01) * iy
-                k02 = -h * (x02 + z02) * iy
-                k12 = -h * (x12 + z12) * iy
-                deriv[6, ci, cj, ck] = k00 * yf0 + k01 * yf1 + k02 * yf2
-                deriv[7, ci, cj, ck] = k01 * yf0 + k11 * yf1 + k12 * yf2
-                deriv[8, ci, cj, ck] = k02 * yf0 + k12 * yf1 + k22 * yf2
-                deriv[9, ci, cj, ck] = k00 * yb0 + k01 * yb1 + k02 * yb2
-                deriv[10, ci, cj, ck] = k01 * yb0 + k11 * yb1 + k12 * yb2
-                deriv[11, ci, cj, ck] = k02 * yb0 + k12 * yb1 + k22 * yb2
-                dg = (c2 + h * (sx + sy)) * iz
-                k00 = dg - h * (x00 + y00) * iz
-                k11 = dg - h * (x11 + y11) * iz
-                k22 = dg - h * (x22 + y22) * iz
-                k01 = -h * (x01 + y01) * iz
-                k02 = -h * (x02 + y02) * iz
-                k12 = -h * (x12 + y12) * iz
-                deriv[12, ci, cj, ck] = k00 * zf0 + k01 * zf1 + k02 * zf2
-                deriv[13, ci, cj, ck] = k01 * zf0 + k11 * zf1 + k12 * zf2
-                deriv[14, ci, cj, ck] = k02 * zf0 + k12 * zf1 + k22 * zf2
-                deriv[15, ci, cj, ck] = k00 * zb0 + k01 * zb1 + k02 * zb2
-                deriv[16, ci, cj, ck] = k01 * zb0 + k11 * zb1 + k12 * zb2
-                deriv[17, ci, cj, ck] = k02 * zb0 + k12 * zb1 + k22 * zb2
-            p0 += np.float64(r0)
-            p1 += np.float64(r1)
-            p2 += np.float64(r2)
-            p3 += np.float64(r3)
-            p4 += np.float64(r4)
-            p5 += np.float64(r5)
-        parts[i, 0], parts[i, 1], parts[i, 2], parts[i, 3], parts[i, 4], parts[i, 5] = p0, p1, p2, p3, p4, p5
+    ci = i + r
+    p0 = p1 = p2 = p3 = p4 = p5 = 0.0
+    ixf, ixb = fx[i], bx[i]
+    for j in range(ny):
+        cj = j + r
+        iyf, iyb = fy[j], by[j]
+        wxy = wx[i] * wy[j]
+        v0c = buf[0, ci, cj, r:]
+        v0zp = buf[0, ci, cj, 2 * r:]
+        v0zm = buf[0, ci, cj, :]
+        v0yp = buf[0, ci, cj + r, r:]
+        v0ym = buf[0, ci, cj - r, r:]
+        v0xp = buf[0, ci + r, cj, r:]
+        v0xm = buf[0, ci - r, cj, r:]
+        v1c = buf[1, ci, cj, r:]
+        v1zp = buf[1, ci, cj, 2 * r:]
+        v1zm = buf[1, ci, cj, :]
+        v1yp = buf[1, ci, cj + r, r:]
+        v1ym = buf[1, ci, cj - r, r:]
+        v1xp = buf[1, ci + r, cj, r:]
+        v1xm = buf[1, ci - r, cj, r:]
+        v2c = buf[2, ci, cj, r:]
+        v2zp = buf[2, ci, cj, 2 * r:]
+        v2zm = buf[2, ci, cj, :]
+        v2yp = buf[2, ci, cj + r, r:]
+        v2ym = buf[2, ci, cj - r, r:]
+        v2xp = buf[2, ci + r, cj, r:]
+        v2xm = buf[2, ci - r, cj, r:]
+        d0 = plane[0, cj, r:]
+        d1 = plane[1, cj, r:]
+        d2 = plane[2, cj, r:]
+        d3 = plane[3, cj, r:]
+        d4 = plane[4, cj, r:]
+        d5 = plane[5, cj, r:]
+        d6 = plane[6, cj, r:]
+        d7 = plane[7, cj, r:]
+        d8 = plane[8, cj, r:]
+        d9 = plane[9, cj, r:]
+        d10 = plane[10, cj, r:]
+        d11 = plane[11, cj, r:]
+        d12 = plane[12, cj, r:]
+        d13 = plane[13, cj, r:]
+        d14 = plane[14, cj, r:]
+        d15 = plane[15, cj, r:]
+        d16 = plane[16, cj, r:]
+        d17 = plane[17, cj, r:]
+        dens = density[i, j]
+        r0 = r1 = r2 = r3 = r4 = r5 = buf.dtype.type(0.0)
+        for k in range(nz):
+            izf, izb = fz[k], bz[k]
+            w = wxy * wz[k]
+            n0, n1, n2 = v0c[k], v1c[k], v2c[k]
+            xf0 = (v0xp[k] - n0) * ixf
+            xf1 = (v1xp[k] - n1) * ixf
+            xf2 = (v2xp[k] - n2) * ixf
+            xb0 = (n0 - v0xm[k]) * ixb
+            xb1 = (n1 - v1xm[k]) * ixb
+            xb2 = (n2 - v2xm[k]) * ixb
+            yf0 = (v0yp[k] - n0) * iyf
+            yf1 = (v1yp[k] - n1) * iyf
+            yf2 = (v2yp[k] - n2) * iyf
+            yb0 = (n0 - v0ym[k]) * iyb
+            yb1 = (n1 - v1ym[k]) * iyb
+            yb2 = (n2 - v2ym[k]) * iyb
+            zf0 = (v0zp[k] - n0) * izf
+            zf1 = (v1zp[k] - n1) * izf
+            zf2 = (v2zp[k] - n2) * izf
+            zb0 = (n0 - v0zm[k]) * izb
+            zb1 = (n1 - v1zm[k]) * izb
+            zb2 = (n2 - v2zm[k]) * izb
+            # M_a = f f^T + b b^T (entries 00 11 22 01 02 12), S_a = tr M_a
+            x00 = xf0 * xf0 + xb0 * xb0
+            x11 = xf1 * xf1 + xb1 * xb1
+            x22 = xf2 * xf2 + xb2 * xb2
+            x01 = xf0 * xf1 + xb0 * xb1
+            x02 = xf0 * xf2 + xb0 * xb2
+            x12 = xf1 * xf2 + xb1 * xb2
+            y00 = yf0 * yf0 + yb0 * yb0
+            y11 = yf1 * yf1 + yb1 * yb1
+            y22 = yf2 * yf2 + yb2 * yb2
+            y01 = yf0 * yf1 + yb0 * yb1
+            y02 = yf0 * yf2 + yb0 * yb2
+            y12 = yf1 * yf2 + yb1 * yb2
+            z00 = zf0 * zf0 + zb0 * zb0
+            z11 = zf1 * zf1 + zb1 * zb1
+            z22 = zf2 * zf2 + zb2 * zb2
+            z01 = zf0 * zf1 + zb0 * zb1
+            z02 = zf0 * zf2 + zb0 * zb2
+            z12 = zf1 * zf2 + zb1 * zb2
+            sx = x00 + x11 + x22
+            sy = y00 + y11 + y22
+            sz = z00 + z11 + z22
+            xy = x00 * y00 + x11 * y11 + x22 * y22 + two * (x01 * y01 + x02 * y02 + x12 * y12)
+            xz = x00 * z00 + x11 * z11 + x22 * z22 + two * (x01 * z01 + x02 * z02 + x12 * z12)
+            yz = y00 * z00 + y11 * z11 + y22 * z22 + two * (y01 * z01 + y02 * z02 + y12 * z12)
+            exy = quarter * c4 * (sx * sy - xy)
+            exz = quarter * c4 * (sx * sz - xz)
+            eyz = quarter * c4 * (sy * sz - yz)
+            r0 += w * half * c2 * sx
+            r1 += w * half * c2 * sy
+            r2 += w * half * c2 * sz
+            r3 += w * exy
+            r4 += w * exz
+            r5 += w * eyz
+            dens[k] = half * c2 * (sx + sy + sz) + exy + exz + eyz
+            # K_x = c2 + h (S_y + S_z) - h (M_y + M_z), and cyclic; times 1 / (r h_a)
+            dg = c2 + h * (sy + sz)
+            k00 = dg - h * (y00 + z00)
+            k11 = dg - h * (y11 + z11)
+            k22 = dg - h * (y22 + z22)
+            k01 = -h * (y01 + z01)
+            k02 = -h * (y02 + z02)
+            k12 = -h * (y12 + z12)
+            wf, wb = w * ixf, w * ixb
+            d0[k] = wf * (k00 * xf0 + k01 * xf1 + k02 * xf2)
+            d1[k] = wf * (k01 * xf0 + k11 * xf1 + k12 * xf2)
+            d2[k] = wf * (k02 * xf0 + k12 * xf1 + k22 * xf2)
+            d3[k] = wb * (k00 * xb0 + k01 * xb1 + k02 * xb2)
+            d4[k] = wb * (k01 * xb0 + k11 * xb1 + k12 * xb2)
+            d5[k] = wb * (k02 * xb0 + k12 * xb1 + k22 * xb2)
+            dg = c2 + h * (sx + sz)
+            k00 = dg - h * (x00 + z00)
+            k11 = dg - h * (x11 + z11)
+            k22 = dg - h * (x22 + z22)
+            k01 = -h * (x01 + z01)
+            k02 = -h * (x02 + z02)
+            k12 = -h * (x12 + z12)
+            wf, wb = w * iyf, w * iyb
+            d6[k] = wf * (k00 * yf0 + k01 * yf1 + k02 * yf2)
+            d7[k] = wf * (k01 * yf0 + k11 * yf1 + k12 * yf2)
+            d8[k] = wf * (k02 * yf0 + k12 * yf1 + k22 * yf2)
+            d9[k] = wb * (k00 * yb0 + k01 * yb1 + k02 * yb2)
+            d10[k] = wb * (k01 * yb0 + k11 * yb1 + k12 * yb2)
+            d11[k] = wb * (k02 * yb0 + k12 * yb1 + k22 * yb2)
+            dg = c2 + h * (sx + sy)
+            k00 = dg - h * (x00 + y00)
+            k11 = dg - h * (x11 + y11)
+            k22 = dg - h * (x22 + y22)
+            k01 = -h * (x01 + y01)
+            k02 = -h * (x02 + y02)
+            k12 = -h * (x12 + y12)
+            wf, wb = w * izf, w * izb
+            d12[k] = wf * (k00 * zf0 + k01 * zf1 + k02 * zf2)
+            d13[k] = wf * (k01 * zf0 + k11 * zf1 + k12 * zf2)
+            d14[k] = wf * (k02 * zf0 + k12 * zf1 + k22 * zf2)
+            d15[k] = wb * (k00 * zb0 + k01 * zb1 + k02 * zb2)
+            d16[k] = wb * (k01 * zb0 + k11 * zb1 + k12 * zb2)
+            d17[k] = wb * (k02 * zb0 + k12 * zb1 + k22 * zb2)
+        p0 += np.float64(r0)
+        p1 += np.float64(r1)
+        p2 += np.float64(r2)
+        p3 += np.float64(r3)
+        p4 += np.float64(r4)
+        p5 += np.float64(r5)
+    return p0, p1, p2, p3, p4, p5
+
+
+@nb.njit(cache=True, fastmath=_FAST)
+def _plane_gradient(buf, r, i, lower, own, upper, lo, w, accumulate, out):
+    """out[i, j, k] (+)= w P(dE/dn) on x-plane i from the derivative planes of x-planes
+    i - r (lower), i (own), i + r (upper).  A site enters its own forward (-) and backward
+    (+) differences, the forward difference of the site r below (+) and the backward one of
+    the site r above (-); the y and z frames of the planes are zero (fixed) or wrapped
+    (periodic).  Sites of the fixed border (lo = 1) are held.  ``out`` is the gradient viewed
+    as (Nx, Ny, 3 Nz) (contiguous rows, so that the k loop vectorises)."""
+    ny, nz = out.shape[1], out.shape[2] // 3
+    ci = i + r
+    # views start at the first free site (offset lo), so the k loop counts from 0 and LLVM
+    # can bound every access (a loop from a run-time start stayed scalar)
+    b, m = r + lo, nz - 2 * lo
+    for j in range(lo, ny - lo):
+        cj = j + r
+        n0, n1, n2 = buf[0, ci, cj, b:], buf[1, ci, cj, b:], buf[2, ci, cj, b:]
+        # own rows, x neighbours, y neighbours; z neighbours through shifted slices
+        a0, a1, a2, a3, a4, a5 = (own[0, cj, b:], own[1, cj, b:], own[2, cj, b:],
+                                  own[3, cj, b:], own[4, cj, b:], own[5, cj, b:])
+        a6, a7, a8, a9, a10, a11 = (own[6, cj, b:], own[7, cj, b:], own[8, cj, b:],
+                                    own[9, cj, b:], own[10, cj, b:], own[11, cj, b:])
+        a12, a13, a14, a15, a16, a17 = (own[12, cj, b:], own[13, cj, b:], own[14, cj, b:],
+                                        own[15, cj, b:], own[16, cj, b:], own[17, cj, b:])
+        xm0, xm1, xm2 = lower[0, cj, b:], lower[1, cj, b:], lower[2, cj, b:]
+        xp3, xp4, xp5 = upper[3, cj, b:], upper[4, cj, b:], upper[5, cj, b:]
+        ym6, ym7, ym8 = own[6, cj - r, b:], own[7, cj - r, b:], own[8, cj - r, b:]
+        yp9, yp10, yp11 = own[9, cj + r, b:], own[10, cj + r, b:], own[11, cj + r, b:]
+        zm12, zm13, zm14 = own[12, cj, lo:], own[13, cj, lo:], own[14, cj, lo:]
+        zp15, zp16, zp17 = own[15, cj, b + r:], own[16, cj, b + r:], own[17, cj, b + r:]
+        row = out[i, j, 3 * lo:]  # site lo + k, component c at 3 k + c
+        for k in range(m):
+            g0 = (a3[k] - a0[k] + a9[k] - a6[k] + a15[k] - a12[k]
+                  + xm0[k] - xp3[k] + ym6[k] - yp9[k] + zm12[k] - zp15[k])
+            g1 = (a4[k] - a1[k] + a10[k] - a7[k] + a16[k] - a13[k]
+                  + xm1[k] - xp4[k] + ym7[k] - yp10[k] + zm13[k] - zp16[k])
+            g2 = (a5[k] - a2[k] + a11[k] - a8[k] + a17[k] - a14[k]
+                  + xm2[k] - xp5[k] + ym8[k] - yp11[k] + zm14[k] - zp17[k])
+            along = g0 * n0[k] + g1 * n1[k] + g2 * n2[k]
+            u0, u1, u2 = w * (g0 - along * n0[k]), w * (g1 - along * n1[k]), w * (g2 - along * n2[k])
+            if accumulate:
+                u0 += row[3 * k]
+                u1 += row[3 * k + 1]
+                u2 += row[3 * k + 2]
+            row[3 * k] = u0
+            row[3 * k + 1] = u1
+            row[3 * k + 2] = u2
+
+
+@nb.njit(cache=True)
+def _wrap_plane_frame(plane, r):
+    """Periodic boxes: copy a derivative plane's interior into its r-wide y and z frame."""
+    ny, nz = plane.shape[1] - 2 * r, plane.shape[2] - 2 * r
+    for q in range(plane.shape[0]):
+        for pj in range(ny + 2 * r):
+            j = (pj - r) % ny + r
+            for pk in range(nz + 2 * r):
+                if r <= pj < ny + r and r <= pk < nz + r:
+                    continue
+                plane[q, pj, pk] = plane[q, j, (pk - r) % nz + r]
 
 
 @nb.njit(parallel=True, cache=True)
-def _wrap_frame(deriv, r):
-    """Periodic boxes: copy the derivatives into the r-wide frame (wrapped), so that pass
-    two reads its neighbours without index arithmetic."""
-    nx, ny, nz = deriv.shape[1] - 2 * r, deriv.shape[2] - 2 * r, deriv.shape[3] - 2 * r
-    for q in nb.prange(deriv.shape[0]):
-        for pi in range(nx + 2 * r):
-            i = (pi - r) % nx + r
-            for pj in range(ny + 2 * r):
-                j = (pj - r) % ny + r
-                for pk in range(nz + 2 * r):
-                    if r <= pi < nx + r and r <= pj < ny + r and r <= pk < nz + r:
-                        continue
-                    deriv[q, pi, pj, pk] = deriv[q, i, j, (pk - r) % nz + r]
-
-
-@nb.njit(parallel=True, cache=True, fastmath=_FAST)
-def _pass_two(buf, deriv, r, periodic, scale, weight, accumulate, out):
-    """out[i, j, k] += weight * scale * P(dE/dn) at free sites (the border of a fixed box
-    is held).  A site enters its own forward (-) and backward (+) differences, the forward
-    difference of the site r below (+) and the backward one of the site r above (-); the
-    frame of ``deriv`` is zero (fixed) or wrapped (periodic)."""
-    nx, ny, nz = out.shape[0], out.shape[1], out.shape[2]
+def _fused(buf, r, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, periodic, w, accumulate, gradient,
+           store_density, rings, parts, density, out):
+    """Energy pieces per x-plane (parts), density and (if ``gradient``) the tangent gradient
+    in one sweep.  The x-planes are cut into one slab per ring (rings.shape[0], one per
+    thread); a slab computes the derivative planes of its own x-planes and r on either side
+    (a recomputed halo) into a ring of 2 r + 1 planes, and gathers the gradient of plane
+    i - r as soon as plane i is done, so the derivatives (18 values per site, the largest
+    traffic of a two-pass form) stay in cache instead of travelling to main memory."""
+    nx = buf.shape[1] - 2 * r
+    slabs = rings.shape[0]
+    span = 2 * r + 1
     lo = 0 if periodic else 1
-    w = out.dtype.type(weight * scale)
-    for i in nb.prange(lo, nx - lo):
-        ci = i + r
-        for j in range(lo, ny - lo):
-            cj = j + r
-            for k in range(lo, nz - lo):
-                ck = k + r
-                g0 = (deriv[3, ci, cj, ck] - deriv[0, ci, cj, ck] + deriv[9, ci, cj, ck] - deriv[6, ci, cj, ck]
-                      + deriv[15, ci, cj, ck] - deriv[12, ci, cj, ck]
-                      + deriv[0, ci - r, cj, ck] - deriv[3, ci + r, cj, ck]
-                      + deriv[6, ci, cj - r, ck] - deriv[9, ci, cj + r, ck]
-                      + deriv[12, ci, cj, ck - r] - deriv[15, ci, cj, ck + r])
-                g1 = (deriv[4, ci, cj, ck] - deriv[1, ci, cj, ck] + deriv[10, ci, cj, ck] - deriv[7, ci, cj, ck]
-                      + deriv[16, ci, cj, ck] - deriv[13, ci, cj, ck]
-                      + deriv[1, ci - r, cj, ck] - deriv[4, ci + r, cj, ck]
-                      + deriv[7, ci, cj - r, ck] - deriv[10, ci, cj + r, ck]
-                      + deriv[13, ci, cj, ck - r] - deriv[16, ci, cj, ck + r])
-                g2 = (deriv[5, ci, cj, ck] - deriv[2, ci, cj, ck] + deriv[11, ci, cj, ck] - deriv[8, ci, cj, ck]
-                      + deriv[17, ci, cj, ck] - deriv[14, ci, cj, ck]
-                      + deriv[2, ci - r, cj, ck] - deriv[5, ci + r, cj, ck]
-                      + deriv[8, ci, cj - r, ck] - deriv[11, ci, cj + r, ck]
-                      + deriv[14, ci, cj, ck - r] - deriv[17, ci, cj, ck + r])
-                n0, n1, n2 = buf[0, ci, cj, ck], buf[1, ci, cj, ck], buf[2, ci, cj, ck]
-                along = g0 * n0 + g1 * n1 + g2 * n2
-                if accumulate:
-                    out[i, j, k, 0] += w * (g0 - along * n0)
-                    out[i, j, k, 1] += w * (g1 - along * n1)
-                    out[i, j, k, 2] += w * (g2 - along * n2)
-                else:
-                    out[i, j, k, 0] = w * (g0 - along * n0)
-                    out[i, j, k, 1] = w * (g1 - along * n1)
-                    out[i, j, k, 2] = w * (g2 - along * n2)
+    for t in nb.prange(slabs):
+        i0 = t * nx // slabs
+        i1 = (t + 1) * nx // slabs
+        ring = rings[t]
+        first, last = (i0 - r, i1 + r) if gradient else (i0, i1)
+        for ip in range(first, last):
+            plane = ring[ip % span]
+            owned = i0 <= ip < i1
+            if not periodic and (ip < 0 or ip >= nx):
+                plane[:] = 0.0  # beyond a fixed border: no sites, no energy
+            else:
+                i = ip % nx
+                pieces = _plane_derivatives(buf, r, i, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, plane,
+                                            density, store_density and owned)
+                if owned:
+                    for q in range(6):
+                        parts[i, q] = pieces[q]
+                if periodic:
+                    _wrap_plane_frame(plane, r)
+            g = ip - r
+            if gradient and g >= i0 and lo <= g < nx - lo:
+                _plane_gradient(buf, r, g, ring[(g - r) % span], ring[g % span], ring[(g + r) % span],
+                                lo, w, accumulate, out)
+
+
+@nb.njit(parallel=True, cache=True)
+def max_forward_gradient_sq(field, fx, fy, fz, periodic):
+    """max over sites of sum_a |D+_a n|^2 with D+_a n = (n(x + e_a) - n(x)) f_a (f_a per
+    site along axis a: 1 / h_a, or the stretched link factors over h_a); beyond the last
+    site the vacuum e3 (fixed) or the wrapped field (periodic).  Used by the core thickness."""
+    nx, ny, nz = field.shape[0], field.shape[1], field.shape[2]
+    largest = np.zeros(nx)
+    vacuum = np.array([0.0, 0.0, 1.0])
+    for i in nb.prange(nx):
+        best = 0.0
+        iu = i + 1 if i + 1 < nx else 0
+        for j in range(ny):
+            ju = j + 1 if j + 1 < ny else 0
+            for k in range(nz):
+                ku = k + 1 if k + 1 < nz else 0
+                total = 0.0
+                for comp in range(3):
+                    here = field[i, j, k, comp]
+                    ax = field[iu, j, k, comp] if (i + 1 < nx or periodic) else vacuum[comp]
+                    ay = field[i, ju, k, comp] if (j + 1 < ny or periodic) else vacuum[comp]
+                    az = field[i, j, ku, comp] if (k + 1 < nz or periodic) else vacuum[comp]
+                    dx, dy, dz = (ax - here) * fx[i], (ay - here) * fy[j], (az - here) * fz[k]
+                    total += dx * dx + dy * dy + dz * dz
+                best = max(best, total)
+        largest[i] = best
+    return largest.max()
 
 
 _BUFFERS: dict = {}
@@ -258,7 +392,22 @@ def _buffer(key, shape, dtype, zero=False):
     return array
 
 
-def _run(field, spacing, periodic, reaches_weights, c2, c4, normalisation, out, gradient=True):
+def _factors(n, h, r, dtype, metric_axis):
+    """Forward and backward difference factors and site weights along one axis."""
+    inverse = 1.0 / (r * h)
+    if metric_axis is None:
+        ones = np.ones(n, dtype=dtype)
+        return ones * dtype(inverse), ones * dtype(inverse), ones
+    forward, backward, weights = metric_axis
+    return ((np.asarray(forward) * inverse).astype(dtype), (np.asarray(backward) * inverse).astype(dtype),
+            np.asarray(weights).astype(dtype))
+
+
+_NO_GRADIENT = np.zeros((1, 1, 3))
+
+
+def _run(field, spacing, periodic, reaches_weights, c2, c4, normalisation, out, gradient=True, metric=None,
+         store_density=True):
     field = np.ascontiguousarray(field)
     nx, ny, nz, _ = field.shape
     hx, hy, hz = (float(h) for h in spacing)
@@ -271,41 +420,49 @@ def _run(field, spacing, periodic, reaches_weights, c2, c4, normalisation, out, 
     parts = np.empty((nx, 6), dtype=np.float64)
     pieces = np.zeros(6)
     densities = []
+    real = field.dtype.type
     for count, (reach, weight) in enumerate(reaches_weights):
+        per_axis = [_factors(n, h, reach, real, None if metric is None else metric[reach][a])
+                    for a, (n, h) in enumerate(zip(field.shape[:3], (hx, hy, hz)))]
+        (fx, bx, wx), (fy, by, wy), (fz, bz, wz) = per_axis
         density = _buffer(("density", reach), (nx, ny, nz), field.dtype)
-        densities.append((weight * normalisation, density))
+        if store_density:
+            densities.append((weight * normalisation, density))
         padded_shape = (nx + 2 * reach, ny + 2 * reach, nz + 2 * reach)
         buf = _buffer(("field", reach), (3,) + padded_shape, field.dtype)
-        deriv = _buffer(("deriv", reach, periodic), (18,) + padded_shape, field.dtype, zero=True)
+        slabs = max(1, min(nb.get_num_threads(), nx))
+        rings = _buffer(("rings", reach, periodic), (slabs, 2 * reach + 1, 18) + padded_shape[1:], field.dtype,
+                        zero=True)
         _to_padded_planes(field, reach, periodic, buf)
-        _pass_one(buf, reach, hx, hy, hz, float(c2), float(c4), deriv, parts, density)
-        if periodic:
-            _wrap_frame(deriv, reach)
+        _fused(buf, reach, fx, bx, fy, by, fz, bz, wx, wy, wz, float(c2), float(c4), periodic,
+               real(weight * scale), count > 0, gradient, store_density, rings, parts,
+               density, out.reshape(nx, ny, 3 * nz) if gradient else _NO_GRADIENT.astype(real))
         pieces += weight * scale * parts.sum(axis=0)
-        if gradient:
-            _pass_two(buf, deriv, reach, periodic, scale, weight, count > 0, out)
     return pieces, densities, out
 
 
 def value_and_grad(field: np.ndarray, spacing, periodic: bool, reaches_weights, c2: float, c4: float,
-                   normalisation: float, out: np.ndarray | None = None):
+                   normalisation: float, out: np.ndarray | None = None, metric=None):
     """Energy (float64) and tangent-projected gradient (the field's dtype, border zeroed
     on fixed boxes) of c2 * dirichlet + c4 * skyrme_faddeev; ``reaches_weights`` lists
     (reach, weight) pairs: ((1, 1.0),) for the second-order scheme, ((1, 4/3), (2, -1/3))
     for the fourth-order one.  ``out`` (the field's shape and dtype) receives the gradient
     when given: a relaxation reuses two buffers instead of asking the system for fresh
-    pages at every evaluation."""
-    pieces, _, out = _run(field, spacing, periodic, reaches_weights, c2, c4, normalisation, out)
+    pages at every evaluation.  ``metric`` (stretched grids, see `solitons.energy.grid_metric`):
+    metric[reach][axis] = (forward link factors, backward link factors, site weights),
+    1-D arrays along that axis; None for a uniform grid."""
+    pieces, _, out = _run(field, spacing, periodic, reaches_weights, c2, c4, normalisation, out, metric=metric,
+                          store_density=False)
     return float(pieces.sum()), out
 
 
 def energy_pieces(field: np.ndarray, spacing, periodic: bool, reaches_weights, c2: float, c4: float,
-                  normalisation: float):
+                  normalisation: float, metric=None):
     """The energy split as (E2 along x, y, z; E4 of the planes xy, xz, yz) and the
-    normalised energy density per site (a copy).  The Derrick derivatives follow from the
-    scaling of each piece (see `virial`)."""
+    normalised energy density per site (per unit physical volume; a copy).  The Derrick
+    derivatives follow from the scaling of each piece (see `virial`)."""
     pieces, densities, _ = _run(field, spacing, periodic, reaches_weights, c2, c4, normalisation, None,
-                                gradient=False)
+                                gradient=False, metric=metric)
     return pieces, sum(weight * density.astype(np.float64) for weight, density in densities)
 
 

@@ -163,7 +163,7 @@ class _Tracker:
 
 
 def _max_force(model: Model, gradient) -> float:
-    return float(jnp.max(jnp.linalg.norm(gradient, axis=-1))) / model.force_scale()
+    return float(jnp.max(jnp.linalg.norm(gradient / model.site_scale(), axis=-1)))
 
 
 def minimise(
@@ -208,7 +208,7 @@ def minimise(
         steps=tracker.step,
         evaluations=evaluations,
         energy=float(final_energy),
-        max_force=float(np.max(np.linalg.norm(final_gradient, axis=-1))) / model.force_scale(),
+        max_force=float(np.max(np.linalg.norm(np.asarray(final_gradient) / model.site_scale(), axis=-1))),
         history=tracker.history,
         wall_seconds=time.perf_counter() - start,
         message=message,
@@ -218,13 +218,13 @@ def minimise(
 def _arrested_newton(model, field, tracker, rule, time_step, _memory):
     h = min(model.grid.spacing)
     dt = (0.07 if time_step is None else time_step) * h
-    scale = model.force_scale()
-    step_fn = _anf_step_fn(model, dt, scale)
+    scale = jnp.asarray(model.site_scale())  # per site on stretched grids: force per unit volume
+    step_fn = _anf_step_fn(model, dt)
     velocity = jnp.zeros_like(field)
     value, grad = model.value_and_grad(field)
     evaluations = 1
     for _ in range(rule.max_steps):
-        new_field, new_velocity, new_value, new_grad, max_force = step_fn(field, velocity, grad)
+        new_field, new_velocity, new_value, new_grad, max_force = step_fn(field, velocity, grad, scale)
         evaluations += 1
         new_value = float(new_value)
         if not math.isfinite(new_value) or not math.isfinite(float(max_force)):
@@ -239,14 +239,14 @@ def _arrested_newton(model, field, tracker, rule, time_step, _memory):
     return field, MAX_STEPS, evaluations, f"stopped after max_steps={rule.max_steps}"
 
 
-def _anf_step_fn(model, dt, scale):
+def _anf_step_fn(model, dt):
     @jax.jit
-    def step(field, velocity, grad):
+    def step(field, velocity, grad, scale):
         velocity = velocity - dt * grad / scale
         new_field = normalise(field + dt * velocity)
         velocity = project_tangent(new_field, velocity)
         value, new_grad = model.value_and_grad(new_field)
-        max_force = jnp.max(jnp.linalg.norm(new_grad, axis=-1)) / scale
+        max_force = jnp.max(jnp.linalg.norm(new_grad / scale, axis=-1))
         return new_field, velocity, value, new_grad, max_force
 
     return step
@@ -255,18 +255,18 @@ def _anf_step_fn(model, dt, scale):
 def _gradient_flow(model, field, tracker, rule, time_step, _memory):
     h = min(model.grid.spacing)
     dt = (0.01 if time_step is None else time_step) * h * h
-    scale = model.force_scale()
+    scale = jnp.asarray(model.site_scale())
 
     @jax.jit
-    def step(field, grad):
+    def step(field, grad, scale):
         new_field = normalise(field - dt * grad / scale)
         value, new_grad = model.value_and_grad(new_field)
-        return new_field, value, new_grad, jnp.max(jnp.linalg.norm(new_grad, axis=-1)) / scale
+        return new_field, value, new_grad, jnp.max(jnp.linalg.norm(new_grad / scale, axis=-1))
 
     _, grad = model.value_and_grad(field)
     evaluations = 1
     for _ in range(rule.max_steps):
-        new_field, value, new_grad, max_force = step(field, grad)
+        new_field, value, new_grad, max_force = step(field, grad, scale)
         evaluations += 1
         if not (math.isfinite(float(value)) and math.isfinite(float(max_force))):
             tracker.record(field, float(value), float(max_force))
@@ -281,22 +281,23 @@ def _gradient_flow(model, field, tracker, rule, time_step, _memory):
 def _scipy_lbfgs(model, field, tracker, rule, _time_step, memory):
     shape = field.shape
     scale = model.force_scale()
+    site_scale = jnp.asarray(model.site_scale())
 
     @jax.jit
-    def value_and_grad_u(u):
+    def value_and_grad_u(u, site_scale):
         # d/du E(u / |u|) = P_n(dE/dn) / |u|: one evaluation gives both the objective's
         # gradient and the tangent force used by the stopping rule.
         length = jnp.linalg.norm(u, axis=-1, keepdims=True)
         n = u / length
         value, tangent = model.value_and_grad(n)
-        max_force = jnp.max(jnp.linalg.norm(tangent, axis=-1)) / scale
+        max_force = jnp.max(jnp.linalg.norm(tangent / site_scale, axis=-1))
         return value, tangent / length, max_force, n
 
     state = {"evaluations": 0, "last_finite": field, "status": None, "max_force": np.inf}
 
     def fun(flat):
         u = jnp.asarray(flat.reshape(shape))
-        value, grad, max_force, n = value_and_grad_u(u)
+        value, grad, max_force, n = value_and_grad_u(u, site_scale)
         state["evaluations"] += 1
         value = float(value)
         if not math.isfinite(value):
@@ -337,9 +338,17 @@ def _scipy_lbfgs(model, field, tracker, rule, _time_step, memory):
     return field, status, state["evaluations"], message
 
 
+# Precision of the stored L-BFGS pairs.  float32 halves the traffic of the two history
+# passes (every dot product entering the direction is taken of the stored values, in
+# float64), but Q = 1 on 64^3 then took 507 steps instead of 463; analysis/bench_relax.py
+# compares both (--history-dtype).
+HISTORY_DTYPE = np.float64
+
+
 def _lbfgs(model, field, tracker, rule, _time_step, memory):
     """Numpy state with the fused passes of solitons.fieldops; one evaluation per trial
-    point through Model.evaluate (the numba kernel where it applies, jax otherwise)."""
+    point through Model.evaluate (the numba kernel where it applies, jax otherwise).
+    Directions from the compact form of L-BFGS (two passes over the history per step)."""
     from solitons import fieldops
 
     scale = model.force_scale()
@@ -347,28 +356,56 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory):
     shape = field.shape
     sites = int(np.prod(shape[:-1]))
     mask = np.ascontiguousarray(model.grid.free_mask().reshape(sites), dtype=np.float64)
+    mask3 = np.repeat(mask, 3)  # per entry of the flat (3P,) views used by the direction passes
     field = np.array(field, dtype=np.float64).reshape(sites, 3)
-    s_hist = np.empty((memory, sites, 3))
-    y_hist = np.empty((memory, sites, 3))
-    rho = np.zeros(memory)
+    s_hist = np.empty((memory, sites, 3), dtype=HISTORY_DTYPE)
+    y_hist = np.empty((memory, sites, 3), dtype=HISTORY_DTYPE)
+    s_flat, y_flat = s_hist.reshape(memory, 3 * sites), y_hist.reshape(memory, 3 * sites)
+    sy = np.zeros((memory, memory))  # sy[i, j] = s_i . y_j, yy[i, j] = y_i . W y_j, by slot
+    yy = np.zeros((memory, memory))
     order: list[int] = []  # history slots, oldest first
-    work, step, trial_field = np.empty((sites, 3)), np.empty((sites, 3)), np.empty((sites, 3))
+    step, trial_field = np.empty((sites, 3)), np.empty((sites, 3))
     spare = np.empty((sites, 3))  # the trial gradient; swapped with the current one on acceptance
+    weights = np.zeros(0)  # W: stretched grids use per-site 1 / (dx/dxi product), the volume metric
+    weights3 = np.zeros(0)
+    if model.grid.stretched:
+        weights = np.ascontiguousarray(1.0 / model.grid.site_weights().reshape(sites))
+        weights3 = np.repeat(weights, 3)
+
+    def force(gradient):
+        if not weights.shape[0]:
+            return fieldops.max_norm(gradient) * inv_scale
+        return fieldops.max_weighted_norm(gradient, weights) * inv_scale
 
     def evaluate(values, out):
         energy, grad = model.evaluate(values.reshape(shape), out.reshape(shape))
         return float(energy), out
 
+    def direction(gradient):
+        """-P(H g / scale) into ``step``: (largest site step, slope g . step)."""
+        slots = np.asarray(order, dtype=np.int64)
+        flat_gradient, flat_field, flat_step = gradient.reshape(-1), field.reshape(-1), step.reshape(-1)
+        if not order:
+            return fieldops.compact_direction(flat_field, flat_gradient, inv_scale, 1.0, s_flat, y_flat, slots,
+                                              np.zeros(0), np.zeros(0), weights3, mask3, flat_step)
+        newest = order[-1]
+        dots = fieldops.history_dots(flat_gradient, s_flat, y_flat, slots, newest, weights3)
+        sy[slots, newest] = dots[2]
+        yy[slots, newest] = yy[newest, slots] = dots[3]
+        gamma = sy[newest, newest] / yy[newest, newest]
+        p_coef, q_coef = fieldops.compact_coefficients(inv_scale * dots[0], inv_scale * dots[1],
+                                                       sy[np.ix_(slots, slots)], yy[np.ix_(slots, slots)], gamma)
+        return fieldops.compact_direction(flat_field, flat_gradient, inv_scale, gamma, s_flat, y_flat, slots,
+                                          p_coef, q_coef, weights3, mask3, flat_step)
+
     value, gradient = evaluate(field, np.empty((sites, 3)))
     evaluations = 1
     h = min(model.grid.spacing)
     for _ in range(rule.max_steps):
-        largest = fieldops.two_loop(field, gradient, inv_scale, s_hist, y_hist, rho, order, mask, work, step)
-        slope = fieldops.dot(gradient, step)
+        largest, slope = direction(gradient)
         if not slope < 0:  # not a descent direction: restart from steepest descent
             order = []
-            largest = fieldops.two_loop(field, gradient, inv_scale, s_hist, y_hist, rho, order, mask, work, step)
-            slope = fieldops.dot(gradient, step)
+            largest, slope = direction(gradient)
         alpha = 1.0
         if not order:  # no curvature known: move no site by more than a tenth of h
             alpha = min(1.0, 0.1 * h / max(largest, 1e-300))
@@ -383,20 +420,18 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory):
                 break
             saw_non_finite |= not math.isfinite(new_value)
             alpha *= 0.5 if math.isfinite(new_value) else 0.1
-        max_force = fieldops.max_norm(new_gradient) * inv_scale
+        max_force = force(new_gradient)
         if not accepted:
             if saw_non_finite:  # the line search was stopped by a region of non-finite energy
                 tracker.record(field.reshape(shape), float("nan"), float("nan"))
                 return field.reshape(shape), NON_FINITE, evaluations, "energy became non-finite"
             return field.reshape(shape), MAX_STEPS, evaluations, "line search failed (rounding-error level reached)"
         slot = next(k for k in range(memory) if k not in order) if len(order) < memory else order[0]
-        sy, ss, yy = fieldops.curvature_pair(trial_field, step, alpha, gradient, new_gradient, mask, inv_scale,
-                                             s_hist[slot], y_hist[slot])
-        if sy > 1e-12 * math.sqrt(ss * yy):
-            order = [k for k in order if k != slot] + [slot]
-            rho[slot] = 1.0 / sy
-        elif slot in order:  # the slot was overwritten: drop it from the history
-            order.remove(slot)
+        pair_sy, pair_ss, pair_yy = fieldops.curvature_pair(trial_field, step, alpha, gradient, new_gradient, mask,
+                                                            inv_scale, s_hist[slot], y_hist[slot])
+        order = [k for k in order if k != slot]  # the slot is overwritten either way
+        if pair_sy > 1e-12 * math.sqrt(pair_ss * pair_yy):
+            order.append(slot)
         field, trial_field = trial_field, field
         spare = gradient
         value, gradient = new_value, new_gradient

@@ -68,8 +68,13 @@ def plot_slices(field, grid: Grid, density, path, meta: dict | None = None) -> P
             (density[tuple(index)], "magma", colors.Normalize(0, emax), "energy density"),
         )):
             ax = axes[row, col]
-            image = ax.imshow(values.T, origin="lower", extent=extent, cmap=cmap, norm=norm,
-                              interpolation="nearest")
+            if grid.stretched:  # cells of unequal size: draw each at its physical place
+                image = ax.pcolormesh(axes_coords[others[0]], axes_coords[others[1]], values.T, cmap=cmap,
+                                      norm=norm, shading="nearest")
+                ax.set_aspect("equal")
+            else:
+                image = ax.imshow(values.T, origin="lower", extent=extent, cmap=cmap, norm=norm,
+                                  interpolation="nearest")
             if row == 0:
                 ax.contour(axes_coords[others[0]], axes_coords[others[1]], values.T,
                            levels=[0.0], colors="k", linewidths=0.6)
@@ -78,6 +83,8 @@ def plot_slices(field, grid: Grid, density, path, meta: dict | None = None) -> P
             ax.set_title(f"{label} on {plane}")
             fig.colorbar(image, ax=ax, shrink=0.85)
     spacing = ", ".join(f"{h:g}" for h in grid.spacing)
+    if grid.stretched:
+        spacing += " at the centre, stretch " + ", ".join(f"{s:g}" for s in grid.stretch)
     fig.suptitle(f"{_title_text(meta)}    grid {'x'.join(map(str, grid.shape))}, h = {spacing}"
                  f"  (model length units; black line: $n_3 = 0$)")
     return save_figure(fig, path)
@@ -94,7 +101,7 @@ def isosurface_mesh(field, grid: Grid, level: float = DEFAULT_LEVEL):
 
     n1 = map_coordinates(field[..., 0], verts.T, order=1)
     n2 = map_coordinates(field[..., 1], verts.T, order=1)
-    coords = verts * np.asarray(grid.spacing) + np.asarray(grid.origin)
+    coords = grid.index_to_position(verts)
     return coords, faces, np.arctan2(n2, n1)
 
 

@@ -71,6 +71,9 @@ def _tangent_basis(field: np.ndarray):
 def lowest_modes(model: Model, field, count: int = 8, tol: float = 1e-6, max_iterations: int | None = None) -> dict:
     """Lowest ``count`` Hessian eigenvalues of a (relaxed) field, with translation
     overlaps.  Held border sites are excluded."""
+    if model.grid.stretched:
+        raise ValueError("the Hessian study needs a uniform grid: on a stretched grid the eigenproblem "
+                         "would need the site volumes as a metric (not built)")
     field = np.asarray(field, dtype=np.float64)
     scale = model.force_scale()
     free = model.grid.free_mask()[..., 0] > 0

@@ -37,7 +37,9 @@ def _cross(a, b):
 
 
 def topological_field(field, grid: Grid):
-    """B (Nx, Ny, Nz, 3) with B_k = (1/2) eps_kij n . (d_i n x d_j n), spectral derivatives."""
+    """B (Nx, Ny, Nz, 3) with B_k = (1/2) eps_kij n . (d_i n x d_j n), spectral derivatives
+    (in the computational coordinates of a stretched grid)."""
+    grid = grid.computational()
     d = [spectral_derivative(field, grid, axis) for axis in range(3)]
 
     def f(i, j):
@@ -60,7 +62,11 @@ def coulomb_potential(b_field, grid: Grid):
 
 
 def hopf_charge_density(field, grid: Grid):
-    """Whitehead density -A . B / (16 pi^2), shape (Nx, Ny, Nz)."""
+    """Whitehead density -A . B / (16 pi^2), shape (Nx, Ny, Nz), per unit volume of the
+    computational coordinates (the physical ones on a uniform grid).  The integral is
+    coordinate invariant (A . B d^3x is a 3-form), so a stretched grid is integrated in
+    its computational coordinate xi, where the field is as smooth as anywhere."""
+    grid = grid.computational()
     b_field = topological_field(field, grid)
     a_field = coulomb_potential(b_field, grid)
     return -jnp.sum(a_field * b_field, axis=-1) / (16.0 * np.pi**2)
@@ -74,4 +80,4 @@ def _charge_jit(field, grid: Grid):
 def hopf_charge(field, grid: Grid) -> float:
     """Hopf charge Q of a (Nx, Ny, Nz, 3) unit field (see module docstring for the sign).
     Jitted (one compilation per grid): eager FFTs at 128^3 spent seconds allocating."""
-    return float(_charge_jit(jnp.asarray(field, dtype=jnp.float64), grid))
+    return float(_charge_jit(jnp.asarray(field, dtype=jnp.float64), grid.computational()))
