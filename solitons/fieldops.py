@@ -118,7 +118,7 @@ def history_dots(gradient, s_hist, y_hist, slots, newest, weights):
 def compact_direction(field, gradient, scale, gamma, s_hist, y_hist, slots, p_coef, q_coef, weights, mask,
                       out):
     """out <- -P_n(gamma W (g~ + sum_i q_i y_i) + sum_i p_i s_i) on free sites, g~ = scale g;
-    all arrays flat (3P,) (histories (m, 3P), mask per entry); returns (largest per-site
+    arrays flat (3P,) (histories (m, 3P)) except ``mask``, one value per site; returns (largest per-site
     length of out, g . out).  NaN propagates.  Blocks: the linear combination entry-wise
     (vectorised) into a block buffer, then the tangent projection site by site."""
     k = slots.shape[0]
@@ -130,7 +130,8 @@ def compact_direction(field, gradient, scale, gamma, s_hist, y_hist, slots, p_co
     slope = np.zeros(blocks)
     for t in nb.prange(blocks):
         lo, hi = t * CHUNK, min(size, (t + 1) * CHUNK)
-        g, n, m, o = gradient[lo:hi], field[lo:hi], mask[lo:hi], out[lo:hi]
+        g, n, o = gradient[lo:hi], field[lo:hi], out[lo:hi]
+        m = mask[lo // 3:hi // 3]  # CHUNK is a multiple of 3: blocks hold whole sites
         u = np.empty(hi - lo)
         v = np.zeros(hi - lo)
         for e in range(hi - lo):
@@ -155,7 +156,7 @@ def compact_direction(field, gradient, scale, gamma, s_hist, y_hist, slots, p_co
             h0, h1, h2 = u[e], u[e + 1], u[e + 2]
             n0, n1, n2 = n[e], n[e + 1], n[e + 2]
             along = h0 * n0 + h1 * n1 + h2 * n2
-            d0, d1, d2 = -m[e] * (h0 - along * n0), -m[e] * (h1 - along * n1), -m[e] * (h2 - along * n2)
+            d0, d1, d2 = -m[site] * (h0 - along * n0), -m[site] * (h1 - along * n1), -m[site] * (h2 - along * n2)
             o[e], o[e + 1], o[e + 2] = d0, d1, d2
             length = np.sqrt(d0 * d0 + d1 * d1 + d2 * d2)
             best = max(best, length)

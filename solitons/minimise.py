@@ -356,7 +356,6 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory):
     shape = field.shape
     sites = int(np.prod(shape[:-1]))
     mask = np.ascontiguousarray(model.grid.free_mask().reshape(sites), dtype=np.float64)
-    mask3 = np.repeat(mask, 3)  # per entry of the flat (3P,) views used by the direction passes
     field = np.array(field, dtype=np.float64).reshape(sites, 3)
     s_hist = np.empty((memory, sites, 3), dtype=HISTORY_DTYPE)
     y_hist = np.empty((memory, sites, 3), dtype=HISTORY_DTYPE)
@@ -387,7 +386,7 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory):
         flat_gradient, flat_field, flat_step = gradient.reshape(-1), field.reshape(-1), step.reshape(-1)
         if not order:
             return fieldops.compact_direction(flat_field, flat_gradient, inv_scale, 1.0, s_flat, y_flat, slots,
-                                              np.zeros(0), np.zeros(0), weights3, mask3, flat_step)
+                                              np.zeros(0), np.zeros(0), weights3, mask, flat_step)
         newest = order[-1]
         dots = fieldops.history_dots(flat_gradient, s_flat, y_flat, slots, newest, weights3)
         sy[slots, newest] = dots[2]
@@ -396,7 +395,7 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory):
         p_coef, q_coef = fieldops.compact_coefficients(inv_scale * dots[0], inv_scale * dots[1],
                                                        sy[np.ix_(slots, slots)], yy[np.ix_(slots, slots)], gamma)
         return fieldops.compact_direction(flat_field, flat_gradient, inv_scale, gamma, s_flat, y_flat, slots,
-                                          p_coef, q_coef, weights3, mask3, flat_step)
+                                          p_coef, q_coef, weights3, mask, flat_step)
 
     value, gradient = evaluate(field, np.empty((sites, 3)))
     evaluations = 1

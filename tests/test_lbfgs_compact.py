@@ -53,7 +53,8 @@ def test_compact_direction_equals_two_loop(weighted, count):
               ).astype(np.float32)
     order = list(rng.permutation(memory)[:count])  # slots, oldest first, not in slot order
     weights3 = np.repeat(rng.uniform(0.2, 1.0, sites), 3) if weighted else np.zeros(0)
-    mask3 = np.repeat((rng.uniform(size=sites) > 0.1).astype(float), 3)
+    mask = (rng.uniform(size=sites) > 0.1).astype(float)
+    mask3 = np.repeat(mask, 3)
     scale = 0.37
 
     slots = np.asarray(order, dtype=np.int64)
@@ -71,7 +72,7 @@ def test_compact_direction_equals_two_loop(weighted, count):
     p, q = fieldops.compact_coefficients(scale * dots[0], scale * dots[1], sy, yy, gamma)
     out = np.empty(3 * sites)
     largest, slope = fieldops.compact_direction(field.reshape(-1), gradient, scale, gamma, s_hist, y_hist, slots,
-                                                p, q, weights3, mask3, out)
+                                                p, q, weights3, mask, out)
 
     reference = -project(field, two_loop_reference(scale * gradient, [(s64[k], y64[k]) for k in order], w), mask3)
     assert np.abs(out - reference).max() < 1e-10 * np.abs(reference).max()
@@ -88,5 +89,5 @@ def test_compact_direction_propagates_nan():
     out = np.empty(3 * sites)
     history = np.zeros((1, 3 * sites), dtype=np.float32)
     largest, _ = fieldops.compact_direction(field, gradient, 1.0, 1.0, history, history, np.zeros(0, np.int64),
-                                            np.zeros(0), np.zeros(0), np.zeros(0), np.ones(3 * sites), out)
+                                            np.zeros(0), np.zeros(0), np.zeros(0), np.ones(sites), out)
     assert np.isnan(largest)
