@@ -4,7 +4,8 @@ energy-change criterion), with the ratio of wall time to arrested Newton flow on
 route (the baseline) and the final energies (which must agree) and charges.  Each
 minimiser runs on the jax route and on the fused numba kernel (the flows and scipy call
 the kernel through a host callback inside their jitted steps; L-BFGS calls it directly),
-and L-BFGS also with the coarse start (relax on spacing 2h, interpolate, finish on h).
+and L-BFGS also with the coarse start (relax on spacing 2h, interpolate, finish on h) and
+without its shifted-Laplacian preconditioner (``plain``).
 
     python analysis/bench_relax.py [--points 64] [--spacing 0.125] [--cases ...] > analysis/bench_relax.txt
 """
@@ -31,9 +32,10 @@ def main() -> None:
     parser.add_argument("--points", type=int, default=64)
     parser.add_argument("--spacing", type=float, default=0.125)
     parser.add_argument("--max-steps", type=int, default=4000)
+    parser.add_argument("--shift", type=float, default=None, help="preconditioner shift (default: the tool's)")
     parser.add_argument("--cases", default=None,
-                        help="comma-separated method:route[:coarse][:f32] list (f32: L-BFGS history stored "
-                             "in float32); the first is the baseline "
+                        help="comma-separated method:route[:coarse][:f32][:plain] list (f32: L-BFGS history "
+                             "stored in float32; plain: L-BFGS without the preconditioner); the first is the baseline "
                              "(default: arrested_newton:jax, then every method on both routes)")
     args = parser.parse_args()
     grid = Grid.centred(args.points, args.spacing, "fixed")
@@ -42,32 +44,38 @@ def main() -> None:
     start_field = hopf_map(grid, 1.0)
     rule = StoppingRule(max_steps=args.max_steps, force_tol=1e-3, energy_tol=0.0)
     print(f"grid {args.points}^3, h = {args.spacing}, fixed border, second-order scheme; "
-          f"stop at max force < 1e-3 or {args.max_steps} steps")
+          f"stop at max force < 1e-3 or {args.max_steps} steps; preconditioner shift "
+          f"{'default' if args.shift is None else args.shift}")
     if args.cases:
-        cases = [(c.split(":")[0], c.split(":")[1], "coarse" in c.split(":")[2:], "f32" in c.split(":")[2:])
+        cases = [(c.split(":")[0], c.split(":")[1], *(flag in c.split(":")[2:] for flag in ("coarse", "f32", "plain")))
                  for c in args.cases.split(",")]
     else:
-        cases = [("arrested_newton", "jax", False, False)]
-        cases += [(m, b, False, False) for m in METHODS for b in ("jax", "numba")
+        cases = [("arrested_newton", "jax", False, False, False)]
+        cases += [(m, b, False, False, False) for m in METHODS for b in ("jax", "numba")
                   if (m, b) != ("arrested_newton", "jax")]
-        cases += [("lbfgs", "numba", True, False), ("lbfgs", "numba", False, True)]
-    print(f"method            route  coarse hist status      steps  evals   wall_s  E               Q          "
+        cases += [("lbfgs", "numba", True, False, False), ("lbfgs", "numba", False, True, False),
+                  ("lbfgs", "numba", False, False, True)]
+    print(f"method            route  coarse hist precond status      steps  evals   wall_s  E               Q          "
           f"time/{cases[0][0]}-{cases[0][1]}")
     baseline = None
-    for method, backend, coarse, f32 in cases:
+    for method, backend, coarse, f32, plain in cases:
+        preconditioner = "none" if plain else "laplacian"
         minimise_module.HISTORY_DTYPE = np.float32 if f32 else np.float64
         model = Model(terms, grid, "second", backend)
         start = time.perf_counter()
         field0, coarse_steps = start_field, 0
         if coarse:
             coarse_grid = grid.coarsened()
-            first = minimise(Model(terms, coarse_grid, "second", backend), hopf_map(coarse_grid, 1.0), method, rule)
+            first = minimise(Model(terms, coarse_grid, "second", backend), hopf_map(coarse_grid, 1.0), method, rule,
+                             preconditioner=preconditioner, preconditioner_shift=args.shift)
             field0, coarse_steps = interpolate_field(first.field, coarse_grid, grid), first.steps
-        result = minimise(model, field0, method, rule)
+        result = minimise(model, field0, method, rule, preconditioner=preconditioner,
+                          preconditioner_shift=args.shift)
         wall = time.perf_counter() - start
         baseline = baseline or wall
         steps = f"{coarse_steps}+{result.steps}" if coarse else str(result.steps)
-        print(f"{method:16s}  {backend:5s}  {'yes' if coarse else 'no':5s}  {'f32' if f32 else 'f64'}  "
+        shown = ("none" if plain else "lapl") if method == "lbfgs" else "-"
+        print(f"{method:16s}  {backend:5s}  {'yes' if coarse else 'no':5s}  {'f32' if f32 else 'f64'}  {shown:6s}  "
               f"{result.status:10s} {steps:>8s} "
               f"{result.evaluations:6d} {wall:8.1f}  {result.energy:.10f}  {hopf_charge(result.field, grid):.6f}  "
               f"{wall / baseline:6.3f}", flush=True)

@@ -17,7 +17,7 @@ from typing import Any
 from solitons.energy import BACKENDS, SCHEMES, kernel_couplings
 from solitons.grid import BOUNDARIES
 from solitons.initial import FAMILIES, describe, expected_charge
-from solitons.minimise import METHODS
+from solitons.minimise import METHODS, PRECONDITIONERS
 from solitons.terms import BUILTIN_TERMS, Term
 
 DEFAULTS: dict[str, Any] = {
@@ -29,7 +29,7 @@ DEFAULTS: dict[str, Any] = {
     "relax": {"method": "lbfgs", "max_steps": 4000, "force_tol": 1e-3, "energy_tol": 1e-10,
               "patience": 20, "time_step": 0.0, "checkpoint_every": 100,
               "progress_seconds": 5.0, "hessian_modes": 0, "backend": "auto",
-              "coarse_start": False},
+              "coarse_start": False, "preconditioner": "laplacian", "preconditioner_shift": 1.0},
 }
 
 _TERM_KEYS = ("kind", "coupling")
@@ -113,6 +113,8 @@ class RelaxSpec:
     hessian_modes: int = 0
     backend: str = "auto"
     coarse_start: bool = False
+    preconditioner: str = "laplacian"
+    preconditioner_shift: float = 1.0
 
 
 @dataclass(frozen=True)
@@ -451,7 +453,12 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
         hessian_modes=c.integer("relax", "hessian_modes", minimum=0),
         backend=c.choice("relax", "backend", BACKENDS),
         coarse_start=c.boolean("relax", "coarse_start"),
+        preconditioner=c.choice("relax", "preconditioner", PRECONDITIONERS),
+        preconditioner_shift=c.real("relax", "preconditioner_shift", non_negative=True),
     )
+    if grid.boundary == "periodic" and relax.preconditioner == "laplacian" and relax.preconditioner_shift == 0.0:
+        c.fail("relax.preconditioner_shift", 0.0, "a periodic box needs a positive shift (the constant mode "
+               "of the Laplacian is zero)")
     if relax.backend == "numba" and (
             any(t.kind not in BUILTIN_TERMS for t in terms)
             or kernel_couplings(tuple(Term(t.name, BUILTIN_TERMS[t.kind], t.coupling) for t in terms)) is None):

@@ -100,7 +100,8 @@ def coarse_stage(spec: RunSpec, grid: Grid, model: Model, rule: StoppingRule, st
         print(f"  coarse start on {'x'.join(map(str, coarse_grid.shape))}, h = {coarse_grid.spacing[0]:g}",
               file=stream, flush=True)
     start = time.perf_counter()
-    result = minimise(coarse_model, make_initial_field(spec, coarse_grid), spec.relax.method, rule)
+    result = minimise(coarse_model, make_initial_field(spec, coarse_grid), spec.relax.method, rule,
+                      preconditioner=spec.relax.preconditioner, preconditioner_shift=spec.relax.preconditioner_shift)
     charge = hopf_charge(result.field, coarse_grid)
     expected = spec.initial.expected_charge
     report = {"used": False, "grid": list(coarse_grid.shape), "spacing": list(coarse_grid.spacing),
@@ -261,6 +262,8 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         checkpoint=checkpoint, checkpoint_every=relax_spec.checkpoint_every,
         monitor=lambda f: monitor_values(model, f),
         monitor_every=MONITOR_EVERY,
+        preconditioner=relax_spec.preconditioner,
+        preconditioner_shift=relax_spec.preconditioner_shift,
     )
     field = result.field
     energies = model.energies(field)

@@ -80,12 +80,13 @@ CHUNK = 3 * 2048  # entries per block: a block of every history vector stays in 
 
 
 @nb.njit(parallel=True, cache=True, fastmath={"reassoc", "contract", "nsz"})
-def history_dots(gradient, s_hist, y_hist, slots, newest, weights):
+def history_dots(gradient, s_hist, y_hist, y_new, slots, weights):
     """One pass over the history, flat (entry-wise, so the inner loops vectorise): per slot
-    s_i . g, y_i . W g, s_i . y_new, y_i . W y_new, with gradient (3P,), histories (m, 3P),
-    W = diag(weights) per entry (3P,) or 1 when weights is empty, y_new = y_hist[newest].
-    Returns a (4, k) array in the order of ``slots``.  Inner loops run over block views
-    from index 0 (a loop from a run-time start stayed scalar)."""
+    s_i . g, y_i . W g, s_i . y_new, y_i . W y_new, with gradient and y_new (3P,), histories
+    (m, 3P), W = diag(weights) per entry (3P,) or 1 when weights is empty.  With an operator
+    W (the preconditioned minimiser) pass y_hist = W Y and empty weights.  Returns a (4, k)
+    array in the order of ``slots``.  Inner loops run over block views from index 0 (a loop
+    from a run-time start stayed scalar)."""
     k = slots.shape[0]
     size = gradient.shape[0]
     blocks = (size + CHUNK - 1) // CHUNK
@@ -93,7 +94,7 @@ def history_dots(gradient, s_hist, y_hist, slots, newest, weights):
     partial = np.zeros((blocks, 4, k))
     for t in nb.prange(blocks):
         lo, hi = t * CHUNK, min(size, (t + 1) * CHUNK)
-        g, n = gradient[lo:hi], y_hist[newest, lo:hi]  # n may be float32: products below in float64
+        g, n = gradient[lo:hi], y_new[lo:hi]  # n may be float32: products below in float64
         w = weights[lo:hi] if weighted else gradient[lo:lo]
         for a in range(k):
             s_row, y_row = s_hist[slots[a], lo:hi], y_hist[slots[a], lo:hi]
@@ -115,12 +116,14 @@ def history_dots(gradient, s_hist, y_hist, slots, newest, weights):
 
 
 @nb.njit(parallel=True, cache=True, fastmath={"contract", "nsz"})
-def compact_direction(field, gradient, scale, gamma, s_hist, y_hist, slots, p_coef, q_coef, weights, mask,
+def compact_direction(field, gradient, base, scale, gamma, s_hist, y_hist, slots, p_coef, q_coef, weights, mask,
                       out):
-    """out <- -P_n(gamma W (g~ + sum_i q_i y_i) + sum_i p_i s_i) on free sites, g~ = scale g;
-    arrays flat (3P,) (histories (m, 3P)) except ``mask``, one value per site; returns (largest per-site
-    length of out, g . out).  NaN propagates.  Blocks: the linear combination entry-wise
-    (vectorised) into a block buffer, then the tangent projection site by site."""
+    """out <- -P_n(gamma W (b~ + sum_i q_i y_i) + sum_i p_i s_i) on free sites, b~ = scale base;
+    base = g with W = diag(weights) (or 1 when weights is empty); for an operator W pass
+    base = W g, y_hist = W Y and empty weights.  Arrays flat (3P,) (histories (m, 3P)) except
+    ``mask``, one value per site; returns (largest per-site length of out, g . out).  NaN
+    propagates.  Blocks: the linear combination entry-wise (vectorised) into a block
+    buffer, then the tangent projection site by site."""
     k = slots.shape[0]
     size = gradient.shape[0]
     blocks = (size + CHUNK - 1) // CHUNK
@@ -130,12 +133,12 @@ def compact_direction(field, gradient, scale, gamma, s_hist, y_hist, slots, p_co
     slope = np.zeros(blocks)
     for t in nb.prange(blocks):
         lo, hi = t * CHUNK, min(size, (t + 1) * CHUNK)
-        g, n, o = gradient[lo:hi], field[lo:hi], out[lo:hi]
+        g, b, n, o = gradient[lo:hi], base[lo:hi], field[lo:hi], out[lo:hi]
         m = mask[lo // 3:hi // 3]  # CHUNK is a multiple of 3: blocks hold whole sites
         u = np.empty(hi - lo)
         v = np.zeros(hi - lo)
         for e in range(hi - lo):
-            u[e] = scale * g[e]
+            u[e] = scale * b[e]
         for a in range(k):
             s_row, y_row, pa, qa = s_hist[slots[a], lo:hi], y_hist[slots[a], lo:hi], p_coef[a], q_coef[a]
             for e in range(hi - lo):

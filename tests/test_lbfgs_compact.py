@@ -59,7 +59,7 @@ def test_compact_direction_equals_two_loop(weighted, count):
 
     slots = np.asarray(order, dtype=np.int64)
     newest = order[-1]
-    dots = fieldops.history_dots(gradient, s_hist, y_hist, slots, newest, weights3)
+    dots = fieldops.history_dots(gradient, s_hist, y_hist, y_hist[newest], slots, weights3)
     s64, y64 = s_hist.astype(np.float64), y_hist.astype(np.float64)
     w = weights3 if weighted else np.ones(3 * sites)
     for a, slot in enumerate(order):  # the fused pass against plain dot products
@@ -71,8 +71,8 @@ def test_compact_direction_equals_two_loop(weighted, count):
     gamma = sy[-1, -1] / yy[-1, -1]
     p, q = fieldops.compact_coefficients(scale * dots[0], scale * dots[1], sy, yy, gamma)
     out = np.empty(3 * sites)
-    largest, slope = fieldops.compact_direction(field.reshape(-1), gradient, scale, gamma, s_hist, y_hist, slots,
-                                                p, q, weights3, mask, out)
+    largest, slope = fieldops.compact_direction(field.reshape(-1), gradient, gradient, scale, gamma, s_hist, y_hist,
+                                                slots, p, q, weights3, mask, out)
 
     reference = -project(field, two_loop_reference(scale * gradient, [(s64[k], y64[k]) for k in order], w), mask3)
     assert np.abs(out - reference).max() < 1e-10 * np.abs(reference).max()
@@ -88,6 +88,7 @@ def test_compact_direction_propagates_nan():
     gradient[7] = np.nan
     out = np.empty(3 * sites)
     history = np.zeros((1, 3 * sites), dtype=np.float32)
-    largest, _ = fieldops.compact_direction(field, gradient, 1.0, 1.0, history, history, np.zeros(0, np.int64),
+    largest, _ = fieldops.compact_direction(field, gradient, gradient, 1.0, 1.0, history, history,
+                                            np.zeros(0, np.int64),
                                             np.zeros(0), np.zeros(0), np.zeros(0), np.ones(sites), out)
     assert np.isnan(largest)
