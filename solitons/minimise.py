@@ -404,13 +404,17 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory, preconditioner="lapl
         energy, grad = model.evaluate(values.reshape(shape), out.reshape(shape))
         return float(energy), out
 
-    def direction(gradient):
-        """-P(H g / scale) into ``step``: (largest site step, slope g . step)."""
+    def preconditioned(gradient):
+        """W g, flat (g itself when W is diagonal or 1: compact_direction applies it)."""
+        if operator is None:
+            return gradient.reshape(-1)
+        return operator.apply(gradient, w_gradient).reshape(-1)
+
+    def direction(gradient, base):
+        """-P(H g / scale) into ``step`` from g and base = `preconditioned`(g): (largest site
+        step, slope g . step)."""
         slots = np.asarray(order, dtype=np.int64)
         flat_gradient, flat_field, flat_step = gradient.reshape(-1), field.reshape(-1), step.reshape(-1)
-        base = flat_gradient
-        if operator is not None:
-            base = operator.apply(gradient, w_gradient).reshape(-1)
         if not order:
             return fieldops.compact_direction(flat_field, flat_gradient, base, inv_scale, 1.0, s_flat, y_flat, slots,
                                               np.zeros(0), np.zeros(0), weights3, mask, flat_step)
@@ -428,10 +432,11 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory, preconditioner="lapl
     evaluations = 1
     h = min(model.grid.spacing)
     for _ in range(rule.max_steps):
-        largest, slope = direction(gradient)
-        if not slope < 0:  # not a descent direction: restart from steepest descent
+        base = preconditioned(gradient)
+        largest, slope = direction(gradient, base)
+        if not slope < 0:  # not a descent direction: restart from (preconditioned) steepest descent
             order = []
-            largest, slope = direction(gradient)
+            largest, slope = direction(gradient, base)
         alpha = 1.0
         if not order:  # no curvature known: move no site by more than a tenth of h
             alpha = min(1.0, 0.1 * h / max(largest, 1e-300))

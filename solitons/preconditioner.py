@@ -39,18 +39,16 @@ class LaplacianPreconditioner:
     """``apply(vectors, out)``: out <- W vectors on (P, 3) arrays in the grid's site order
     (C order of (Nx, Ny, Nz)); held border sites of ``out`` are zero."""
 
-    def __init__(self, grid: Grid, shift: float = SHIFT, workers: int | None = None):
+    def __init__(self, grid: Grid, shift: float = SHIFT):
         if not shift >= 0.0:
             raise ValueError(f"the preconditioner shift must be >= 0, got {shift!r}")
         if grid.boundary == "periodic" and shift == 0.0:
             raise ValueError("a periodic box needs a positive preconditioner shift (the constant mode)")
         self.grid = grid
         self.shift = float(shift)
-        self.workers = workers if workers is not None else -1  # scipy.fft: all cores
         self.periodic = grid.boundary == "periodic"
         shape = grid.shape
         if self.periodic:
-            self.inner = tuple(slice(0, n) for n in shape)
             self.padded = shape
             modes = [2.0 - 2.0 * np.cos(2.0 * np.pi * np.fft.fftfreq(n)) for n in shape[:-1]]
             modes.append(2.0 - 2.0 * np.cos(2.0 * np.pi * np.arange(shape[-1] // 2 + 1) / shape[-1]))
@@ -64,7 +62,7 @@ class LaplacianPreconditioner:
         if self.periodic:
             inv = 1.0 / lam
         else:
-            # orthonormal DST-I is its own inverse; the two transforms without norm carry 2 (m + 1) per axis
+            # DST-I applied twice without normalisation is 2 (m + 1) times the identity per axis
             inv = 1.0 / (lam * np.prod([2.0 * (m + 1) for m in self.padded]))
         self.inverse_eigenvalues = np.ascontiguousarray(inv[..., None], dtype=TRANSFORM_DTYPE)
         self.root_weights = None
@@ -77,18 +75,18 @@ class LaplacianPreconditioner:
         if self.root_weights is not None:
             v = v * self.root_weights
         if self.periodic:
-            spectrum = scipy.fft.rfftn(v.astype(TRANSFORM_DTYPE), axes=(0, 1, 2), workers=self.workers)
+            spectrum = scipy.fft.rfftn(v.astype(TRANSFORM_DTYPE), axes=(0, 1, 2), workers=-1)
             spectrum *= self.inverse_eigenvalues
-            result = scipy.fft.irfftn(spectrum, s=shape, axes=(0, 1, 2), workers=self.workers)
+            result = scipy.fft.irfftn(spectrum, s=shape, axes=(0, 1, 2), workers=-1)
             o = out.reshape(*shape, 3)
             o[...] = result
         else:
             work = np.zeros((*self.padded, 3), dtype=TRANSFORM_DTYPE)
             n = tuple(s.stop - s.start for s in self.inner)
             work[:n[0], :n[1], :n[2]] = v[self.inner]
-            work = scipy.fft.dstn(work, type=1, axes=(0, 1, 2), workers=self.workers, overwrite_x=True)
+            work = scipy.fft.dstn(work, type=1, axes=(0, 1, 2), workers=-1, overwrite_x=True)
             work *= self.inverse_eigenvalues
-            work = scipy.fft.dstn(work, type=1, axes=(0, 1, 2), workers=self.workers, overwrite_x=True)
+            work = scipy.fft.dstn(work, type=1, axes=(0, 1, 2), workers=-1, overwrite_x=True)
             o = out.reshape(*shape, 3)
             o[0], o[-1], o[:, 0], o[:, -1], o[:, :, 0], o[:, :, -1] = 0.0, 0.0, 0.0, 0.0, 0.0, 0.0
             o[self.inner] = work[:n[0], :n[1], :n[2]]
