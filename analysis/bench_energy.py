@@ -4,10 +4,10 @@ For each grid size and precision: median wall time of one evaluation (after warm
 nanoseconds per grid point, and the ratio to the floor set by reading the field and
 writing the gradient once (2 x 3 values per point) at the copy bandwidth measured in the
 same run with numpy.  Default model (dirichlet + skyrme_faddeev, second-order scheme) at
-N = 64, 96, 128 on both routes (the fused numba kernel and jax autodiff), the fourth-order
-scheme at 128, and every built-in term alone at N = 64 (jax; the kernel covers only the
+N = 64, 96, 128 on both routes (the fused numba kernel and jax autodiff), the fourth- and
+sixth-order schemes at 128, and every built-in term alone at N = 64 (jax; the kernel covers only the
 default model's two terms).  The kernel's work arrays are a padded component-major copy
-of the field (3 values per site), the density (1) and, per thread, a ring of 2 r + 1
+of the field (3 values per site), the density (1) and, per thread, a ring of nine
 planes of the 18 derivatives (a few MB): with the gradient (3) about 7 values, 56 bytes
 per site in float64.
 
@@ -70,7 +70,8 @@ def main() -> None:
     default = (Term("dirichlet", BUILTIN_TERMS["dirichlet"]),
                Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"]))
     cases = [("default", default, n, backend, "second") for n in (64, 96, 128) for backend in ("numba", "jax")]
-    cases += [("default", default, 128, backend, "fourth") for backend in ("numba", "jax")]
+    cases += [("default", default, 128, backend, scheme) for scheme in ("fourth", "sixth")
+              for backend in ("numba", "jax")]
     cases += [(name, (Term(name, kind),), 64, "jax", "second") for name, kind in BUILTIN_TERMS.items()]
     for label, terms, points, backend, scheme in cases:
         grid = Grid.centred(points, 8.0 / points, "fixed")

@@ -14,14 +14,14 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from solitons.energy import BACKENDS, SCHEMES, kernel_couplings
+from solitons.energy import BACKENDS, MIN_POINTS, SCHEMES, kernel_couplings
 from solitons.grid import BOUNDARIES
 from solitons.initial import FAMILIES, describe, expected_charge
 from solitons.minimise import METHODS, PRECONDITIONERS
 from solitons.terms import BUILTIN_TERMS, Term
 
 DEFAULTS: dict[str, Any] = {
-    "grid": {"points": 64, "spacing": 0.125, "boundary": "fixed", "scheme": "second", "stretch": 0.0},
+    "grid": {"points": 64, "spacing": 0.125, "boundary": "fixed", "scheme": "sixth", "stretch": 0.0},
     "terms": {"dirichlet": {"coupling": 1.0}, "skyrme_faddeev": {"coupling": 1.0}},
     "initial": {"family": "axial", "a": 1, "b": 1, "alpha": 1, "beta": 1, "factors": [], "parts": [],
                 "size": 1.0, "centre": [0.0, 0.0, 0.0], "orientation": [0.0, 0.0, 0.0],
@@ -425,10 +425,9 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
     if any(grid.stretch) and grid.boundary == "periodic":
         c.fail("grid.stretch", merged["grid"]["stretch"], "a stretched grid needs boundary = \"fixed\" "
                "(it exists to reach far from the soliton; a periodic box has no far region)")
-    smallest = 2 * SCHEMES[grid.scheme] + 3
-    if min(grid.points) < smallest:
+    if min(grid.points) < MIN_POINTS:
         c.fail("grid.points", merged["grid"]["points"],
-               f"the {grid.scheme}-order stencil needs at least {smallest} points per axis")
+               f"the lattice stencils need at least {MIN_POINTS} points per axis")
 
     if not merged["terms"]:
         c.fail("terms", {}, "at least one energy term is needed")

@@ -34,7 +34,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from solitons.grid import Grid
+from solitons.grid import STENCILS, Grid
 
 STABLE = "stable"
 UNWOUND = "unwound"
@@ -60,7 +60,7 @@ def core_thickness(field: np.ndarray, grid: Grid) -> float:
     inf for a uniform field.  One numba pass: the per-step monitor calls it."""
     from solitons.kernels import max_forward_gradient_sq
 
-    factors = [grid.link_factors(a, 1)[0] / h for a, h in enumerate(grid.spacing)]
+    factors = [grid.difference_factors(a, STENCILS["second"])[0] / h for a, h in enumerate(grid.spacing)]
     steepest = float(np.sqrt(max_forward_gradient_sq(np.ascontiguousarray(field, dtype=np.float64), *factors,
                                                      grid.boundary == "periodic")))
     return np.pi / steepest if steepest > 1e-12 else float("inf")

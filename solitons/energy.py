@@ -6,15 +6,12 @@ Sutcliffe (PRL 81 (1998) 4798) in which the charge-1 minimum is about 1.22.
 
 Lattice schemes
 ---------------
-``second``: every first-derivative density is evaluated with one-sided differences over one
-site and averaged over the eight forward/backward octants at each site (built-in terms use
-an exactly equal faster route).  The site sum is a symmetric, neighbour-coupled rule whose
-error expands in even powers of h (second order).
-
-``fourth``: Richardson extrapolation of the same rule, (4 E[reach 1] - E[reach 2]) / 3, with
-reach-2 differences over two sites.  The h^2 error cancels; the reach-1 part keeps the
-neighbour coupling (for the Dirichlet term the combined symbol
-4 sin^2(kh/2) (4 - cos^2(kh/2)) / 3 vanishes only at k = 0).
+Every density is evaluated at each site from n there and one-sided differences D+ or D-
+along each axis, averaged over the eight octants (built-in terms use exactly equal faster
+routes); the weights are positive, so a non-negative density gives a non-negative lattice
+energy.  ``second`` uses the one-site difference (second order in h), ``fourth`` the
+forward-biased five-point difference (fourth order); both are neighbour coupled.  The
+stencils and their properties are in `solitons.grid` (`STENCILS`).
 
 Virial
 ------
@@ -34,12 +31,13 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from solitons.grid import Grid, grid_differences, pad, shifted
+from solitons.grid import PAD_WIDTH, STENCILS, Grid, grid_differences, grid_laplacian, pad, shifted
 from solitons.terms import Term
 
 NORMALISATION = 1.0 / (32.0 * np.sqrt(2.0) * np.pi**2)
 
-SCHEMES = {"second": 1, "fourth": 2}  # scheme -> stencil reach (padding width)
+SCHEMES = tuple(STENCILS)
+MIN_POINTS = 2 * PAD_WIDTH + 3  # per axis: the stencil and a free interior
 
 
 def _octant_average(term, centre, forward, backward, lap):
@@ -53,23 +51,14 @@ def _octant_average(term, centre, forward, backward, lap):
     return total / 8.0
 
 
-def _site_densities(field, spacing, grid: Grid, terms: tuple[Term, ...], reach: int, generic: bool):
-    padded = pad(field, grid.boundary, reach)
-    centre = shifted(padded, reach, grid.shape, 0, 0)
-    forward, backward = grid_differences(padded, reach, grid, spacing, reach)
+def _site_densities(field, spacing, grid: Grid, terms: tuple[Term, ...], scheme: str, generic: bool):
+    stencil = STENCILS[scheme]
+    padded = pad(field, grid.boundary, PAD_WIDTH)
+    centre = shifted(padded, PAD_WIDTH, grid.shape, 0, 0)
+    forward, backward = grid_differences(padded, PAD_WIDTH, grid, spacing, stencil)
     lap = None
     if any(term.kind.needs_laplacian for term in terms):
-        # (n(x + r) - 2 n(x) + n(x - r)) / (r h)^2, summed over axes; on a stretched grid
-        # the difference of the two one-sided derivatives over r h dx/dxi at the site
-        lap = 0.0
-        for axis, (f, b) in enumerate(zip(forward, backward)):
-            inverse = 1.0
-            if grid.stretched:
-                view = [1, 1, 1, 1]
-                view[axis] = grid.shape[axis]
-                xi = grid.xi_axes()[axis]
-                inverse = jnp.asarray((1.0 / grid.jacobian(xi, axis)).reshape(view), dtype=f.dtype)
-            lap = lap + (f - b) * inverse / (reach * spacing[axis])
+        lap = grid_laplacian(padded, PAD_WIDTH, grid, spacing, stencil)
     densities = []
     for term in terms:
         if term.kind.lattice is not None and not generic:
@@ -83,14 +72,9 @@ def _site_densities(field, spacing, grid: Grid, terms: tuple[Term, ...], reach: 
 def term_densities(field, spacing, grid: Grid, terms, scheme: str = "second", generic=False):
     """Per-term lattice energy densities (tuple of (Nx, Ny, Nz) arrays, normalised, energy per
     unit volume): summed over sites times `Grid.site_volumes` they give the energy."""
-    if scheme == "second":
-        densities = _site_densities(field, spacing, grid, terms, 1, generic)
-    elif scheme == "fourth":
-        near = _site_densities(field, spacing, grid, terms, 1, generic)
-        far = _site_densities(field, spacing, grid, terms, 2, generic)
-        densities = [(4.0 * a - b) / 3.0 for a, b in zip(near, far)]
-    else:
+    if scheme not in STENCILS:
         raise ValueError(f"unknown scheme {scheme!r}; choose from {sorted(SCHEMES)}")
+    densities = _site_densities(field, spacing, grid, terms, scheme, generic)
     return tuple(NORMALISATION * term.coupling * d for term, d in zip(terms, densities))
 
 
@@ -124,8 +108,6 @@ class Evaluation(NamedTuple):
 
 BACKENDS = ("auto", "jax", "numba")
 
-# (reach, weight) of the site sums each scheme combines
-SCHEME_REACHES = {"second": ((1, 1.0),), "fourth": ((1, 4.0 / 3.0), (2, -1.0 / 3.0))}
 
 
 def kernel_couplings(terms: tuple[Term, ...]) -> tuple[float, float] | None:
@@ -143,13 +125,14 @@ def kernel_couplings(terms: tuple[Term, ...]) -> tuple[float, float] | None:
 
 
 @lru_cache(maxsize=16)
-def grid_metric(grid: Grid, reaches: tuple[int, ...]):
-    """The stretched grid's factors in the form `solitons.kernels` takes: metric[reach][axis]
-    = (forward link factors, backward link factors, site dx/dxi), or None when uniform."""
+def grid_metric(grid: Grid, scheme: str):
+    """The stretched grid's factors in the form `solitons.kernels` takes: metric[axis] =
+    (forward difference factors, backward difference factors, site dx/dxi), or None when
+    uniform."""
     if not grid.stretched:
         return None
-    return {r: tuple(grid.link_factors(a, r) + (grid.jacobian(grid.xi_axes()[a], a),) for a in range(3))
-            for r in reaches}
+    stencil = STENCILS[scheme]
+    return tuple(grid.difference_factors(a, stencil) + (grid.jacobian(grid.xi_axes()[a], a),) for a in range(3))
 
 
 @dataclass(frozen=True)
@@ -175,8 +158,7 @@ class Model:
         if self.backend == "numba" and kernel_couplings(self.terms) is None:
             raise ValueError("the numba backend covers only the built-in dirichlet and skyrme_faddeev "
                              "terms; use backend 'jax' or 'auto' for this model")
-        reach = SCHEMES[self.scheme]
-        if min(self.grid.shape) < 2 * reach + 3:
+        if min(self.grid.shape) < MIN_POINTS:
             raise ValueError(
                 f"grid {self.grid.shape} is smaller than the {self.scheme}-order stencil needs"
             )
@@ -197,11 +179,15 @@ class Model:
 
         c2, c4 = kernel_couplings(self.terms)
         return kernels.energy_pieces(np.asarray(field), self.grid.spacing, self.grid.boundary == "periodic",
-                                     SCHEME_REACHES[self.scheme], c2, c4, NORMALISATION, self.metric)
+                                     self.stencil.taps, c2, c4, NORMALISATION, self.metric)
 
     @property
     def metric(self):
-        return grid_metric(self.grid, tuple(r for r, _ in SCHEME_REACHES[self.scheme]))
+        return grid_metric(self.grid, self.scheme)
+
+    @property
+    def stencil(self):
+        return STENCILS[self.scheme]
 
     def energies(self, field) -> dict[str, float]:
         if self.uses_kernel:
@@ -248,7 +234,7 @@ class Model:
 
             c2, c4 = kernel_couplings(self.terms)
             return kernels.value_and_grad(np.asarray(field), self.grid.spacing, self.grid.boundary == "periodic",
-                                          SCHEME_REACHES[self.scheme], c2, c4, NORMALISATION, out, self.metric)
+                                          self.stencil.taps, c2, c4, NORMALISATION, out, self.metric)
         value, grad = self.value_and_grad(field)
         if out is None:
             return float(value), np.asarray(grad)
@@ -309,10 +295,10 @@ def _kernel_value_and_grad(model: Model, field):
 
     c2, c4 = kernel_couplings(model.terms)
     periodic = model.grid.boundary == "periodic"
-    reaches = SCHEME_REACHES[model.scheme]
+    taps = model.stencil.taps
 
     def host(values):
-        energy, grad = kernels.value_and_grad(np.asarray(values), model.grid.spacing, periodic, reaches,
+        energy, grad = kernels.value_and_grad(np.asarray(values), model.grid.spacing, periodic, taps,
                                               c2, c4, NORMALISATION, metric=model.metric)
         return np.asarray(energy, dtype=np.float64), grad
 

@@ -13,6 +13,25 @@ see a site-to-site flip and a knotted field can unwind through the lattice at no
 Forward and backward differences couple every site to its neighbour: the symbol of the
 forward difference, |e^{i k h} - 1| = 2 |sin(k h / 2)|, vanishes only at k = 0
 (common practice in lattice field theory).
+
+The two schemes (`STENCILS`) differ only in the one-sided difference D+ (and its mirror
+D-) that enters every density; a site's density is the average over the eight octants
+(D+ or D- along each axis), so every weight is positive and the lattice energy of a
+non-negative density is non-negative:
+
+* ``second``: D+ f(x) = (f(x + h) - f(x)) / h, a second-order estimate of f' at the link
+  midpoint x + h/2; the octant average is second order.
+* ``fourth``: the forward-biased five-point difference
+  D+ f(x) = (-3 f(x - h) - 10 f(x) + 18 f(x + h) - 6 f(x + 2h) + f(x + 3h)) / (12 h),
+  a fourth-order estimate of f'(x) (its Taylor moments sum_o c_o o^m vanish for m = 0, 2,
+  3, 4; derived).  Its symbol p(kh) vanishes only at k = 0, and |p|^2 / (kh)^2 is 1 +
+  (kh)^4 / 10 + ... > 1 for kh < 2.5 and 0.72 at the checkerboard kh = pi (the one-site
+  difference: 1 - (kh)^2 / 12 + ..., and 0.41 at kh = pi).  So this scheme's error is
+  positive where the field is nearly resolved: coarse cells cost energy, which keeps a
+  soliton off the coarse cells of a stretched grid and makes shrinking through the
+  lattice costly.  The Laplacian (for second-derivative terms) is the central five-point
+  (-f(x-2h) + 16 f(x-h) - 30 f(x) + 16 f(x+h) - f(x+2h)) / (12 h^2), whose symbol
+  -(4 - 4 cos)(7 - cos) / 12 vanishes only at k = 0 (derived).
 """
 
 from __future__ import annotations
@@ -25,6 +44,42 @@ import numpy as np
 BOUNDARIES = ("fixed", "periodic")
 
 VACUUM = (0.0, 0.0, 1.0)
+
+# Sites from x at which a forward difference reads the field; every scheme's taps are
+# coefficients over these offsets (zero where unused), so one padding serves all.
+TAP_OFFSETS = (-1, 0, 1, 2, 3, 4)
+PAD_WIDTH = 4
+
+
+@dataclass(frozen=True)
+class Stencil:
+    """The one-sided difference of a lattice scheme (see the module docstring).
+
+    ``taps``: D+ f(x) = sum_o taps[o] f(x + o h) / h over `TAP_OFFSETS`; the backward
+    difference is the mirror image, D- f(x) = -sum_o taps[o] f(x - o h) / h.
+    ``at``: where D+ estimates the derivative, in sites from x (1/2 for the link midpoint,
+    0 for the site); a stretched grid's 1 / (dx/dxi) is taken there (and at -at for D-).
+    ``laplacian``: second-difference coefficients over offsets -2..2, times 1 / h^2.
+    """
+
+    name: str
+    order: int
+    taps: tuple[float, ...]
+    at: float
+    laplacian: tuple[float, ...]
+
+    @property
+    def nonzero_taps(self) -> tuple[tuple[int, float], ...]:
+        return tuple((o, c) for o, c in zip(TAP_OFFSETS, self.taps) if c != 0.0)
+
+
+STENCILS = {
+    "second": Stencil("second", 2, (0.0, -1.0, 1.0, 0.0, 0.0, 0.0), 0.5, (0.0, 1.0, -2.0, 1.0, 0.0)),
+    "fourth": Stencil("fourth", 4, tuple(c / 12.0 for c in (-3.0, -10.0, 18.0, -6.0, 1.0, 0.0)), 0.0,
+                      tuple(c / 12.0 for c in (-1.0, 16.0, -30.0, 16.0, -1.0))),
+    "sixth": Stencil("sixth", 6, tuple(c / 60.0 for c in (-12.0, -65.0, 120.0, -60.0, 20.0, -3.0)), 0.0,
+                     tuple(c / 12.0 for c in (-1.0, 16.0, -30.0, 16.0, -1.0))),
+}
 
 
 @dataclass(frozen=True)
@@ -114,12 +169,17 @@ class Grid:
         grid, h on a uniform one)."""
         return float(max(np.max(np.diff(x)) if len(x) > 1 else h for x, h in zip(self.axes(), self.spacing)))
 
-    def link_factors(self, axis: int, reach: int) -> tuple[np.ndarray, np.ndarray]:
-        """(forward, backward) factors 1 / (dx/dxi) at the midpoints of the links from each
-        site to the site ``reach`` above and below along ``axis`` (ones when uniform)."""
+    def difference_factors(self, axis: int, stencil: Stencil) -> tuple[np.ndarray, np.ndarray]:
+        """(forward, backward) factors 1 / (dx/dxi) per site along ``axis`` where the
+        stencil's D+ and D- estimate the derivative (ones when uniform)."""
         xi = self.xi_axes()[axis]
-        half = 0.5 * reach * self.spacing[axis]
-        return 1.0 / self.jacobian(xi + half, axis), 1.0 / self.jacobian(xi - half, axis)
+        shift = stencil.at * self.spacing[axis]
+        return 1.0 / self.jacobian(xi + shift, axis), 1.0 / self.jacobian(xi - shift, axis)
+
+    def jacobian_slope(self, xi, axis: int):
+        """d^2x/dxi^2 on ``axis`` (zeros when uniform)."""
+        s = self.stretch[axis]
+        return np.sinh(np.asarray(xi) / s) / s if s else np.zeros_like(np.asarray(xi, dtype=float))
 
     def site_weights(self) -> np.ndarray:
         """Product of dx/dxi over the three axes at each site, (Nx, Ny, Nz); ones when uniform."""
@@ -198,37 +258,68 @@ def shifted(padded: jnp.ndarray, width: int, shape: tuple[int, int, int], axis: 
     return padded[tuple(index)]
 
 
-def one_sided_differences(padded, width, shape, spacing, reach: int = 1, factors=None):
-    """Forward and backward differences over ``reach`` sites along each axis.
+def _axis_view(values, axis: int, shape):
+    view = [1] * 4
+    view[axis] = shape[axis]
+    return values.reshape(view)
+
+
+def one_sided_differences(padded, width, shape, spacing, stencil: Stencil, factors=None):
+    """The stencil's forward and backward differences along each axis.
 
     Returns two tuples (forward, backward) of three arrays of shape (Nx, Ny, Nz, C):
-    forward[i](x) = (n(x + r e_i) - n(x)) / (r h_i), backward[i](x) = (n(x) - n(x - r e_i)) / (r h_i).
-    ``spacing`` may be a traced array (the virial differentiates with respect to it).
-    ``factors`` (stretched grids): per axis the (forward, backward) 1-D arrays of
-    `Grid.link_factors`, multiplying the differences along that axis.
+    forward[i](x) = sum_o taps[o] n(x + o e_i) / h_i, backward[i](x) = -sum_o taps[o]
+    n(x - o e_i) / h_i.  ``spacing`` may be a traced array (the virial differentiates with
+    respect to it).  ``factors`` (stretched grids): per axis the (forward, backward) 1-D
+    arrays of `Grid.difference_factors`, multiplying the differences along that axis.
     """
+    # differences against the centre (the taps sum to zero): exact zero on a uniform field
+    taps = [(o, c) for o, c in stencil.nonzero_taps if o != 0]
     centre = shifted(padded, width, shape, 0, 0)
     forward, backward = [], []
     for axis in range(3):
-        step = reach * spacing[axis]
-        f = (shifted(padded, width, shape, axis, reach) - centre) / step
-        b = (centre - shifted(padded, width, shape, axis, -reach)) / step
+        f = sum(c * (shifted(padded, width, shape, axis, o) - centre) for o, c in taps) / spacing[axis]
+        b = -sum(c * (shifted(padded, width, shape, axis, -o) - centre) for o, c in taps) / spacing[axis]
         if factors is not None:
-            view = [1, 1, 1, 1]
-            view[axis] = shape[axis]
-            f = f * jnp.asarray(factors[axis][0].reshape(view), dtype=f.dtype)
-            b = b * jnp.asarray(factors[axis][1].reshape(view), dtype=b.dtype)
+            f = f * jnp.asarray(_axis_view(factors[axis][0], axis, shape), dtype=f.dtype)
+            b = b * jnp.asarray(_axis_view(factors[axis][1], axis, shape), dtype=b.dtype)
         forward.append(f)
         backward.append(b)
     return tuple(forward), tuple(backward)
 
 
-def grid_differences(padded, width, grid: Grid, spacing, reach: int = 1):
-    """`one_sided_differences` with the link factors of a stretched ``grid``."""
+def grid_differences(padded, width, grid: Grid, spacing, stencil: Stencil):
+    """`one_sided_differences` with the factors of a stretched ``grid``."""
     factors = None
     if grid.stretched:
-        factors = tuple(grid.link_factors(axis, reach) for axis in range(3))
-    return one_sided_differences(padded, width, grid.shape, spacing, reach, factors)
+        factors = tuple(grid.difference_factors(axis, stencil) for axis in range(3))
+    return one_sided_differences(padded, width, grid.shape, spacing, stencil, factors)
+
+
+def grid_laplacian(padded, width, grid: Grid, spacing, stencil: Stencil):
+    """sum_i d_i d_i n with the stencil's second difference, (Nx, Ny, Nz, C).  On a
+    stretched grid d^2/dx^2 = (d^2/dxi^2 - (x''/x') d/dxi) / x'^2, with the central
+    difference of the same order for d/dxi."""
+    shape = grid.shape
+    centre = shifted(padded, width, shape, 0, 0)
+    total = 0.0
+    for axis in range(3):
+        second = sum(c * shifted(padded, width, shape, axis, o)
+                     for o, c in zip(range(-2, 3), stencil.laplacian) if c != 0.0) / spacing[axis] ** 2
+        if grid.stretched and grid.stretch[axis]:
+            xi = grid.xi_axes()[axis]
+            slope = grid.jacobian_slope(xi, axis) / grid.jacobian(xi, axis)
+            up, down = shifted(padded, width, shape, axis, 1), shifted(padded, width, shape, axis, -1)
+            if stencil.order == 4:
+                up2, down2 = shifted(padded, width, shape, axis, 2), shifted(padded, width, shape, axis, -2)
+                first = (8.0 * (up - down) - (up2 - down2)) / (12.0 * spacing[axis])
+            else:
+                first = (up - down) / (2.0 * spacing[axis])
+            inverse_sq = _axis_view(1.0 / grid.jacobian(xi, axis) ** 2, axis, shape)
+            second = (second - first * jnp.asarray(_axis_view(slope, axis, shape), dtype=centre.dtype)) * \
+                jnp.asarray(inverse_sq, dtype=centre.dtype)
+        total = total + second
+    return total
 
 
 def spectral_derivative(values: jnp.ndarray, grid: Grid, axis: int) -> jnp.ndarray:

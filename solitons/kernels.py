@@ -30,6 +30,8 @@ import llvmlite.binding as llvm
 import numba as nb
 import numpy as np
 
+from solitons.grid import PAD_WIDTH
+
 KERNEL_TERMS = ("dirichlet", "skyrme_faddeev")
 
 
@@ -78,7 +80,7 @@ def _to_padded_planes(field, r, periodic, buf):
 
 
 @nb.njit(cache=True, fastmath=_FAST)
-def _plane_derivatives(buf, r, i, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, plane, density, store_density):
+def _plane_derivatives(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, plane, density, store_density):
     """For x-plane i: plane[3 * row + c, j + r, k + r] = d (w e) / d (d_row)_c at site (i, j, k),
     rows (x+, x-, y+, y-, z+, z-); returns the plane's sums of the six pieces of w e
     (c2 e2 along x, y, z; c4 e4 of the pairs xy, xz, yz); density[i] = e (unnormalised) when
@@ -93,6 +95,7 @@ def _plane_derivatives(buf, r, i, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, pl
     real = buf.dtype.type  # every constant in the field's precision (float32 * float64 would promote)
     c2, c4 = real(c2), real(c4)
     h, half, quarter, two = real(0.5 * c4), real(0.5), real(0.25), real(2.0)
+    t0, t2, t3, t4, t5 = real(taps[0]), real(taps[2]), real(taps[3]), real(taps[4]), real(taps[5])
     ci = i + r
     p0 = p1 = p2 = p3 = p4 = p5 = 0.0
     ixf, ixb = fx[i], bx[i]
@@ -100,27 +103,81 @@ def _plane_derivatives(buf, r, i, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, pl
         cj = j + r
         iyf, iyb = fy[j], by[j]
         wxy = wx[i] * wy[j]
-        v0c = buf[0, ci, cj, r:]
-        v0zp = buf[0, ci, cj, 2 * r:]
-        v0zm = buf[0, ci, cj, :]
-        v0yp = buf[0, ci, cj + r, r:]
-        v0ym = buf[0, ci, cj - r, r:]
-        v0xp = buf[0, ci + r, cj, r:]
-        v0xm = buf[0, ci - r, cj, r:]
-        v1c = buf[1, ci, cj, r:]
-        v1zp = buf[1, ci, cj, 2 * r:]
-        v1zm = buf[1, ci, cj, :]
-        v1yp = buf[1, ci, cj + r, r:]
-        v1ym = buf[1, ci, cj - r, r:]
-        v1xp = buf[1, ci + r, cj, r:]
-        v1xm = buf[1, ci - r, cj, r:]
-        v2c = buf[2, ci, cj, r:]
-        v2zp = buf[2, ci, cj, 2 * r:]
-        v2zm = buf[2, ci, cj, :]
-        v2yp = buf[2, ci, cj + r, r:]
-        v2ym = buf[2, ci, cj - r, r:]
-        v2xp = buf[2, ci + r, cj, r:]
-        v2xm = buf[2, ci - r, cj, r:]
+        v0 = buf[0, ci, cj, r:]
+        v0xm4 = buf[0, ci - 4, cj, r:]
+        v0ym4 = buf[0, ci, cj - 4, r:]
+        v0zm4 = buf[0, ci, cj, r - 4:]
+        v0xm3 = buf[0, ci - 3, cj, r:]
+        v0ym3 = buf[0, ci, cj - 3, r:]
+        v0zm3 = buf[0, ci, cj, r - 3:]
+        v0xm2 = buf[0, ci - 2, cj, r:]
+        v0ym2 = buf[0, ci, cj - 2, r:]
+        v0zm2 = buf[0, ci, cj, r - 2:]
+        v0xm1 = buf[0, ci - 1, cj, r:]
+        v0ym1 = buf[0, ci, cj - 1, r:]
+        v0zm1 = buf[0, ci, cj, r - 1:]
+        v0xp1 = buf[0, ci + 1, cj, r:]
+        v0yp1 = buf[0, ci, cj + 1, r:]
+        v0zp1 = buf[0, ci, cj, r + 1:]
+        v0xp2 = buf[0, ci + 2, cj, r:]
+        v0yp2 = buf[0, ci, cj + 2, r:]
+        v0zp2 = buf[0, ci, cj, r + 2:]
+        v0xp3 = buf[0, ci + 3, cj, r:]
+        v0yp3 = buf[0, ci, cj + 3, r:]
+        v0zp3 = buf[0, ci, cj, r + 3:]
+        v0xp4 = buf[0, ci + 4, cj, r:]
+        v0yp4 = buf[0, ci, cj + 4, r:]
+        v0zp4 = buf[0, ci, cj, r + 4:]
+        v1 = buf[1, ci, cj, r:]
+        v1xm4 = buf[1, ci - 4, cj, r:]
+        v1ym4 = buf[1, ci, cj - 4, r:]
+        v1zm4 = buf[1, ci, cj, r - 4:]
+        v1xm3 = buf[1, ci - 3, cj, r:]
+        v1ym3 = buf[1, ci, cj - 3, r:]
+        v1zm3 = buf[1, ci, cj, r - 3:]
+        v1xm2 = buf[1, ci - 2, cj, r:]
+        v1ym2 = buf[1, ci, cj - 2, r:]
+        v1zm2 = buf[1, ci, cj, r - 2:]
+        v1xm1 = buf[1, ci - 1, cj, r:]
+        v1ym1 = buf[1, ci, cj - 1, r:]
+        v1zm1 = buf[1, ci, cj, r - 1:]
+        v1xp1 = buf[1, ci + 1, cj, r:]
+        v1yp1 = buf[1, ci, cj + 1, r:]
+        v1zp1 = buf[1, ci, cj, r + 1:]
+        v1xp2 = buf[1, ci + 2, cj, r:]
+        v1yp2 = buf[1, ci, cj + 2, r:]
+        v1zp2 = buf[1, ci, cj, r + 2:]
+        v1xp3 = buf[1, ci + 3, cj, r:]
+        v1yp3 = buf[1, ci, cj + 3, r:]
+        v1zp3 = buf[1, ci, cj, r + 3:]
+        v1xp4 = buf[1, ci + 4, cj, r:]
+        v1yp4 = buf[1, ci, cj + 4, r:]
+        v1zp4 = buf[1, ci, cj, r + 4:]
+        v2 = buf[2, ci, cj, r:]
+        v2xm4 = buf[2, ci - 4, cj, r:]
+        v2ym4 = buf[2, ci, cj - 4, r:]
+        v2zm4 = buf[2, ci, cj, r - 4:]
+        v2xm3 = buf[2, ci - 3, cj, r:]
+        v2ym3 = buf[2, ci, cj - 3, r:]
+        v2zm3 = buf[2, ci, cj, r - 3:]
+        v2xm2 = buf[2, ci - 2, cj, r:]
+        v2ym2 = buf[2, ci, cj - 2, r:]
+        v2zm2 = buf[2, ci, cj, r - 2:]
+        v2xm1 = buf[2, ci - 1, cj, r:]
+        v2ym1 = buf[2, ci, cj - 1, r:]
+        v2zm1 = buf[2, ci, cj, r - 1:]
+        v2xp1 = buf[2, ci + 1, cj, r:]
+        v2yp1 = buf[2, ci, cj + 1, r:]
+        v2zp1 = buf[2, ci, cj, r + 1:]
+        v2xp2 = buf[2, ci + 2, cj, r:]
+        v2yp2 = buf[2, ci, cj + 2, r:]
+        v2zp2 = buf[2, ci, cj, r + 2:]
+        v2xp3 = buf[2, ci + 3, cj, r:]
+        v2yp3 = buf[2, ci, cj + 3, r:]
+        v2zp3 = buf[2, ci, cj, r + 3:]
+        v2xp4 = buf[2, ci + 4, cj, r:]
+        v2yp4 = buf[2, ci, cj + 4, r:]
+        v2zp4 = buf[2, ci, cj, r + 4:]
         d0 = plane[0, cj, r:]
         d1 = plane[1, cj, r:]
         d2 = plane[2, cj, r:]
@@ -144,25 +201,43 @@ def _plane_derivatives(buf, r, i, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, pl
         for k in range(nz):
             izf, izb = fz[k], bz[k]
             w = wxy * wz[k]
-            n0, n1, n2 = v0c[k], v1c[k], v2c[k]
-            xf0 = (v0xp[k] - n0) * ixf
-            xf1 = (v1xp[k] - n1) * ixf
-            xf2 = (v2xp[k] - n2) * ixf
-            xb0 = (n0 - v0xm[k]) * ixb
-            xb1 = (n1 - v1xm[k]) * ixb
-            xb2 = (n2 - v2xm[k]) * ixb
-            yf0 = (v0yp[k] - n0) * iyf
-            yf1 = (v1yp[k] - n1) * iyf
-            yf2 = (v2yp[k] - n2) * iyf
-            yb0 = (n0 - v0ym[k]) * iyb
-            yb1 = (n1 - v1ym[k]) * iyb
-            yb2 = (n2 - v2ym[k]) * iyb
-            zf0 = (v0zp[k] - n0) * izf
-            zf1 = (v1zp[k] - n1) * izf
-            zf2 = (v2zp[k] - n2) * izf
-            zb0 = (n0 - v0zm[k]) * izb
-            zb1 = (n1 - v1zm[k]) * izb
-            zb2 = (n2 - v2zm[k]) * izb
+            n0, n1, n2 = v0[k], v1[k], v2[k]
+            xf0 = (t0 * (v0xm1[k] - n0) + t2 * (v0xp1[k] - n0) + t3 * (v0xp2[k] - n0)
+                   + t4 * (v0xp3[k] - n0) + t5 * (v0xp4[k] - n0)) * ixf
+            xf1 = (t0 * (v1xm1[k] - n1) + t2 * (v1xp1[k] - n1) + t3 * (v1xp2[k] - n1)
+                   + t4 * (v1xp3[k] - n1) + t5 * (v1xp4[k] - n1)) * ixf
+            xf2 = (t0 * (v2xm1[k] - n2) + t2 * (v2xp1[k] - n2) + t3 * (v2xp2[k] - n2)
+                   + t4 * (v2xp3[k] - n2) + t5 * (v2xp4[k] - n2)) * ixf
+            xb0 = -(t0 * (v0xp1[k] - n0) + t2 * (v0xm1[k] - n0) + t3 * (v0xm2[k] - n0)
+                    + t4 * (v0xm3[k] - n0) + t5 * (v0xm4[k] - n0)) * ixb
+            xb1 = -(t0 * (v1xp1[k] - n1) + t2 * (v1xm1[k] - n1) + t3 * (v1xm2[k] - n1)
+                    + t4 * (v1xm3[k] - n1) + t5 * (v1xm4[k] - n1)) * ixb
+            xb2 = -(t0 * (v2xp1[k] - n2) + t2 * (v2xm1[k] - n2) + t3 * (v2xm2[k] - n2)
+                    + t4 * (v2xm3[k] - n2) + t5 * (v2xm4[k] - n2)) * ixb
+            yf0 = (t0 * (v0ym1[k] - n0) + t2 * (v0yp1[k] - n0) + t3 * (v0yp2[k] - n0)
+                   + t4 * (v0yp3[k] - n0) + t5 * (v0yp4[k] - n0)) * iyf
+            yf1 = (t0 * (v1ym1[k] - n1) + t2 * (v1yp1[k] - n1) + t3 * (v1yp2[k] - n1)
+                   + t4 * (v1yp3[k] - n1) + t5 * (v1yp4[k] - n1)) * iyf
+            yf2 = (t0 * (v2ym1[k] - n2) + t2 * (v2yp1[k] - n2) + t3 * (v2yp2[k] - n2)
+                   + t4 * (v2yp3[k] - n2) + t5 * (v2yp4[k] - n2)) * iyf
+            yb0 = -(t0 * (v0yp1[k] - n0) + t2 * (v0ym1[k] - n0) + t3 * (v0ym2[k] - n0)
+                    + t4 * (v0ym3[k] - n0) + t5 * (v0ym4[k] - n0)) * iyb
+            yb1 = -(t0 * (v1yp1[k] - n1) + t2 * (v1ym1[k] - n1) + t3 * (v1ym2[k] - n1)
+                    + t4 * (v1ym3[k] - n1) + t5 * (v1ym4[k] - n1)) * iyb
+            yb2 = -(t0 * (v2yp1[k] - n2) + t2 * (v2ym1[k] - n2) + t3 * (v2ym2[k] - n2)
+                    + t4 * (v2ym3[k] - n2) + t5 * (v2ym4[k] - n2)) * iyb
+            zf0 = (t0 * (v0zm1[k] - n0) + t2 * (v0zp1[k] - n0) + t3 * (v0zp2[k] - n0)
+                   + t4 * (v0zp3[k] - n0) + t5 * (v0zp4[k] - n0)) * izf
+            zf1 = (t0 * (v1zm1[k] - n1) + t2 * (v1zp1[k] - n1) + t3 * (v1zp2[k] - n1)
+                   + t4 * (v1zp3[k] - n1) + t5 * (v1zp4[k] - n1)) * izf
+            zf2 = (t0 * (v2zm1[k] - n2) + t2 * (v2zp1[k] - n2) + t3 * (v2zp2[k] - n2)
+                   + t4 * (v2zp3[k] - n2) + t5 * (v2zp4[k] - n2)) * izf
+            zb0 = -(t0 * (v0zp1[k] - n0) + t2 * (v0zm1[k] - n0) + t3 * (v0zm2[k] - n0)
+                    + t4 * (v0zm3[k] - n0) + t5 * (v0zm4[k] - n0)) * izb
+            zb1 = -(t0 * (v1zp1[k] - n1) + t2 * (v1zm1[k] - n1) + t3 * (v1zm2[k] - n1)
+                    + t4 * (v1zm3[k] - n1) + t5 * (v1zm4[k] - n1)) * izb
+            zb2 = -(t0 * (v2zp1[k] - n2) + t2 * (v2zm1[k] - n2) + t3 * (v2zm2[k] - n2)
+                    + t4 * (v2zm3[k] - n2) + t5 * (v2zm4[k] - n2)) * izb
             # M_a = f f^T + b b^T (entries 00 11 22 01 02 12), S_a = tr M_a
             x00 = xf0 * xf0 + xb0 * xb0
             x11 = xf1 * xf1 + xb1 * xb1
@@ -251,14 +326,18 @@ def _plane_derivatives(buf, r, i, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, pl
 
 
 @nb.njit(cache=True, fastmath=_FAST)
-def _plane_gradient(buf, r, i, lower, own, upper, lo, w, accumulate, out):
-    """out[i, j, k] (+)= w P(dE/dn) on x-plane i from the derivative planes of x-planes
-    i - r (lower), i (own), i + r (upper).  A site enters its own forward (-) and backward
-    (+) differences, the forward difference of the site r below (+) and the backward one of
-    the site r above (-); the y and z frames of the planes are zero (fixed) or wrapped
-    (periodic).  Sites of the fixed border (lo = 1) are held.  ``out`` is the gradient viewed
-    as (Nx, Ny, 3 Nz) (contiguous rows, so that the k loop vectorises)."""
+def _plane_gradient(buf, r, i, taps, planes, lo, w, out):
+    """out[i, j, k] = w P(dE/dn) on x-plane i from the derivative planes of x-planes
+    i - 4 .. i + 4 (``planes``, a tuple of nine).  A forward difference at site y reads
+    n(y + o) with tap c_o, a backward one n(y - o) with -c_o, so site x gathers
+    sum_o c_o (P+(x - o) - P-(x + o)) along each axis; the y and z frames of the planes
+    are zero (fixed) or wrapped (periodic).  Sites of the fixed border (lo = 1) are held.
+    ``out`` is the gradient viewed as (Nx, Ny, 3 Nz) (contiguous rows, so that the k loop
+    vectorises)."""
     ny, nz = out.shape[1], out.shape[2] // 3
+    real = buf.dtype.type
+    t0, t1, t2, t3, t4, t5 = (real(taps[0]), real(taps[1]), real(taps[2]), real(taps[3]), real(taps[4]),
+                              real(taps[5]))
     ci = i + r
     # views start at the first free site (offset lo), so the k loop counts from 0 and LLVM
     # can bound every access (a loop from a run-time start stayed scalar)
@@ -266,36 +345,177 @@ def _plane_gradient(buf, r, i, lower, own, upper, lo, w, accumulate, out):
     for j in range(lo, ny - lo):
         cj = j + r
         n0, n1, n2 = buf[0, ci, cj, b:], buf[1, ci, cj, b:], buf[2, ci, cj, b:]
-        # own rows, x neighbours, y neighbours; z neighbours through shifted slices
-        a0, a1, a2, a3, a4, a5 = (own[0, cj, b:], own[1, cj, b:], own[2, cj, b:],
-                                  own[3, cj, b:], own[4, cj, b:], own[5, cj, b:])
-        a6, a7, a8, a9, a10, a11 = (own[6, cj, b:], own[7, cj, b:], own[8, cj, b:],
-                                    own[9, cj, b:], own[10, cj, b:], own[11, cj, b:])
-        a12, a13, a14, a15, a16, a17 = (own[12, cj, b:], own[13, cj, b:], own[14, cj, b:],
-                                        own[15, cj, b:], own[16, cj, b:], own[17, cj, b:])
-        xm0, xm1, xm2 = lower[0, cj, b:], lower[1, cj, b:], lower[2, cj, b:]
-        xp3, xp4, xp5 = upper[3, cj, b:], upper[4, cj, b:], upper[5, cj, b:]
-        ym6, ym7, ym8 = own[6, cj - r, b:], own[7, cj - r, b:], own[8, cj - r, b:]
-        yp9, yp10, yp11 = own[9, cj + r, b:], own[10, cj + r, b:], own[11, cj + r, b:]
-        zm12, zm13, zm14 = own[12, cj, lo:], own[13, cj, lo:], own[14, cj, lo:]
-        zp15, zp16, zp17 = own[15, cj, b + r:], own[16, cj, b + r:], own[17, cj, b + r:]
+        q0_xp1 = planes[5][0, cj, b:]
+        q3_xm1 = planes[3][3, cj, b:]
+        q0_xp0 = planes[4][0, cj, b:]
+        q3_xp0 = planes[4][3, cj, b:]
+        q0_xm1 = planes[3][0, cj, b:]
+        q3_xp1 = planes[5][3, cj, b:]
+        q0_xm2 = planes[2][0, cj, b:]
+        q3_xp2 = planes[6][3, cj, b:]
+        q0_xm3 = planes[1][0, cj, b:]
+        q3_xp3 = planes[7][3, cj, b:]
+        q0_xm4 = planes[0][0, cj, b:]
+        q3_xp4 = planes[8][3, cj, b:]
+        q6_yp1 = planes[4][6, cj + 1, b:]
+        q9_ym1 = planes[4][9, cj - 1, b:]
+        q6_yp0 = planes[4][6, cj + 0, b:]
+        q9_yp0 = planes[4][9, cj + 0, b:]
+        q6_ym1 = planes[4][6, cj - 1, b:]
+        q9_yp1 = planes[4][9, cj + 1, b:]
+        q6_ym2 = planes[4][6, cj - 2, b:]
+        q9_yp2 = planes[4][9, cj + 2, b:]
+        q6_ym3 = planes[4][6, cj - 3, b:]
+        q9_yp3 = planes[4][9, cj + 3, b:]
+        q6_ym4 = planes[4][6, cj - 4, b:]
+        q9_yp4 = planes[4][9, cj + 4, b:]
+        q12_zp1 = planes[4][12, cj, b + 1:]
+        q15_zm1 = planes[4][15, cj, b - 1:]
+        q12_zp0 = planes[4][12, cj, b + 0:]
+        q15_zp0 = planes[4][15, cj, b + 0:]
+        q12_zm1 = planes[4][12, cj, b - 1:]
+        q15_zp1 = planes[4][15, cj, b + 1:]
+        q12_zm2 = planes[4][12, cj, b - 2:]
+        q15_zp2 = planes[4][15, cj, b + 2:]
+        q12_zm3 = planes[4][12, cj, b - 3:]
+        q15_zp3 = planes[4][15, cj, b + 3:]
+        q12_zm4 = planes[4][12, cj, b - 4:]
+        q15_zp4 = planes[4][15, cj, b + 4:]
+        q1_xp1 = planes[5][1, cj, b:]
+        q4_xm1 = planes[3][4, cj, b:]
+        q1_xp0 = planes[4][1, cj, b:]
+        q4_xp0 = planes[4][4, cj, b:]
+        q1_xm1 = planes[3][1, cj, b:]
+        q4_xp1 = planes[5][4, cj, b:]
+        q1_xm2 = planes[2][1, cj, b:]
+        q4_xp2 = planes[6][4, cj, b:]
+        q1_xm3 = planes[1][1, cj, b:]
+        q4_xp3 = planes[7][4, cj, b:]
+        q1_xm4 = planes[0][1, cj, b:]
+        q4_xp4 = planes[8][4, cj, b:]
+        q7_yp1 = planes[4][7, cj + 1, b:]
+        q10_ym1 = planes[4][10, cj - 1, b:]
+        q7_yp0 = planes[4][7, cj + 0, b:]
+        q10_yp0 = planes[4][10, cj + 0, b:]
+        q7_ym1 = planes[4][7, cj - 1, b:]
+        q10_yp1 = planes[4][10, cj + 1, b:]
+        q7_ym2 = planes[4][7, cj - 2, b:]
+        q10_yp2 = planes[4][10, cj + 2, b:]
+        q7_ym3 = planes[4][7, cj - 3, b:]
+        q10_yp3 = planes[4][10, cj + 3, b:]
+        q7_ym4 = planes[4][7, cj - 4, b:]
+        q10_yp4 = planes[4][10, cj + 4, b:]
+        q13_zp1 = planes[4][13, cj, b + 1:]
+        q16_zm1 = planes[4][16, cj, b - 1:]
+        q13_zp0 = planes[4][13, cj, b + 0:]
+        q16_zp0 = planes[4][16, cj, b + 0:]
+        q13_zm1 = planes[4][13, cj, b - 1:]
+        q16_zp1 = planes[4][16, cj, b + 1:]
+        q13_zm2 = planes[4][13, cj, b - 2:]
+        q16_zp2 = planes[4][16, cj, b + 2:]
+        q13_zm3 = planes[4][13, cj, b - 3:]
+        q16_zp3 = planes[4][16, cj, b + 3:]
+        q13_zm4 = planes[4][13, cj, b - 4:]
+        q16_zp4 = planes[4][16, cj, b + 4:]
+        q2_xp1 = planes[5][2, cj, b:]
+        q5_xm1 = planes[3][5, cj, b:]
+        q2_xp0 = planes[4][2, cj, b:]
+        q5_xp0 = planes[4][5, cj, b:]
+        q2_xm1 = planes[3][2, cj, b:]
+        q5_xp1 = planes[5][5, cj, b:]
+        q2_xm2 = planes[2][2, cj, b:]
+        q5_xp2 = planes[6][5, cj, b:]
+        q2_xm3 = planes[1][2, cj, b:]
+        q5_xp3 = planes[7][5, cj, b:]
+        q2_xm4 = planes[0][2, cj, b:]
+        q5_xp4 = planes[8][5, cj, b:]
+        q8_yp1 = planes[4][8, cj + 1, b:]
+        q11_ym1 = planes[4][11, cj - 1, b:]
+        q8_yp0 = planes[4][8, cj + 0, b:]
+        q11_yp0 = planes[4][11, cj + 0, b:]
+        q8_ym1 = planes[4][8, cj - 1, b:]
+        q11_yp1 = planes[4][11, cj + 1, b:]
+        q8_ym2 = planes[4][8, cj - 2, b:]
+        q11_yp2 = planes[4][11, cj + 2, b:]
+        q8_ym3 = planes[4][8, cj - 3, b:]
+        q11_yp3 = planes[4][11, cj + 3, b:]
+        q8_ym4 = planes[4][8, cj - 4, b:]
+        q11_yp4 = planes[4][11, cj + 4, b:]
+        q14_zp1 = planes[4][14, cj, b + 1:]
+        q17_zm1 = planes[4][17, cj, b - 1:]
+        q14_zp0 = planes[4][14, cj, b + 0:]
+        q17_zp0 = planes[4][17, cj, b + 0:]
+        q14_zm1 = planes[4][14, cj, b - 1:]
+        q17_zp1 = planes[4][17, cj, b + 1:]
+        q14_zm2 = planes[4][14, cj, b - 2:]
+        q17_zp2 = planes[4][17, cj, b + 2:]
+        q14_zm3 = planes[4][14, cj, b - 3:]
+        q17_zp3 = planes[4][17, cj, b + 3:]
+        q14_zm4 = planes[4][14, cj, b - 4:]
+        q17_zp4 = planes[4][17, cj, b + 4:]
         row = out[i, j, 3 * lo:]  # site lo + k, component c at 3 k + c
         for k in range(m):
-            g0 = (a3[k] - a0[k] + a9[k] - a6[k] + a15[k] - a12[k]
-                  + xm0[k] - xp3[k] + ym6[k] - yp9[k] + zm12[k] - zp15[k])
-            g1 = (a4[k] - a1[k] + a10[k] - a7[k] + a16[k] - a13[k]
-                  + xm1[k] - xp4[k] + ym7[k] - yp10[k] + zm13[k] - zp16[k])
-            g2 = (a5[k] - a2[k] + a11[k] - a8[k] + a17[k] - a14[k]
-                  + xm2[k] - xp5[k] + ym8[k] - yp11[k] + zm14[k] - zp17[k])
+            g0 = (
+                  t0 * (q0_xp1[k] - q3_xm1[k])
+                  + t1 * (q0_xp0[k] - q3_xp0[k])
+                  + t2 * (q0_xm1[k] - q3_xp1[k])
+                  + t3 * (q0_xm2[k] - q3_xp2[k])
+                  + t4 * (q0_xm3[k] - q3_xp3[k])
+                  + t5 * (q0_xm4[k] - q3_xp4[k])
+                  + t0 * (q6_yp1[k] - q9_ym1[k])
+                  + t1 * (q6_yp0[k] - q9_yp0[k])
+                  + t2 * (q6_ym1[k] - q9_yp1[k])
+                  + t3 * (q6_ym2[k] - q9_yp2[k])
+                  + t4 * (q6_ym3[k] - q9_yp3[k])
+                  + t5 * (q6_ym4[k] - q9_yp4[k])
+                  + t0 * (q12_zp1[k] - q15_zm1[k])
+                  + t1 * (q12_zp0[k] - q15_zp0[k])
+                  + t2 * (q12_zm1[k] - q15_zp1[k])
+                  + t3 * (q12_zm2[k] - q15_zp2[k])
+                  + t4 * (q12_zm3[k] - q15_zp3[k])
+                  + t5 * (q12_zm4[k] - q15_zp4[k]))
+            g1 = (
+                  t0 * (q1_xp1[k] - q4_xm1[k])
+                  + t1 * (q1_xp0[k] - q4_xp0[k])
+                  + t2 * (q1_xm1[k] - q4_xp1[k])
+                  + t3 * (q1_xm2[k] - q4_xp2[k])
+                  + t4 * (q1_xm3[k] - q4_xp3[k])
+                  + t5 * (q1_xm4[k] - q4_xp4[k])
+                  + t0 * (q7_yp1[k] - q10_ym1[k])
+                  + t1 * (q7_yp0[k] - q10_yp0[k])
+                  + t2 * (q7_ym1[k] - q10_yp1[k])
+                  + t3 * (q7_ym2[k] - q10_yp2[k])
+                  + t4 * (q7_ym3[k] - q10_yp3[k])
+                  + t5 * (q7_ym4[k] - q10_yp4[k])
+                  + t0 * (q13_zp1[k] - q16_zm1[k])
+                  + t1 * (q13_zp0[k] - q16_zp0[k])
+                  + t2 * (q13_zm1[k] - q16_zp1[k])
+                  + t3 * (q13_zm2[k] - q16_zp2[k])
+                  + t4 * (q13_zm3[k] - q16_zp3[k])
+                  + t5 * (q13_zm4[k] - q16_zp4[k]))
+            g2 = (
+                  t0 * (q2_xp1[k] - q5_xm1[k])
+                  + t1 * (q2_xp0[k] - q5_xp0[k])
+                  + t2 * (q2_xm1[k] - q5_xp1[k])
+                  + t3 * (q2_xm2[k] - q5_xp2[k])
+                  + t4 * (q2_xm3[k] - q5_xp3[k])
+                  + t5 * (q2_xm4[k] - q5_xp4[k])
+                  + t0 * (q8_yp1[k] - q11_ym1[k])
+                  + t1 * (q8_yp0[k] - q11_yp0[k])
+                  + t2 * (q8_ym1[k] - q11_yp1[k])
+                  + t3 * (q8_ym2[k] - q11_yp2[k])
+                  + t4 * (q8_ym3[k] - q11_yp3[k])
+                  + t5 * (q8_ym4[k] - q11_yp4[k])
+                  + t0 * (q14_zp1[k] - q17_zm1[k])
+                  + t1 * (q14_zp0[k] - q17_zp0[k])
+                  + t2 * (q14_zm1[k] - q17_zp1[k])
+                  + t3 * (q14_zm2[k] - q17_zp2[k])
+                  + t4 * (q14_zm3[k] - q17_zp3[k])
+                  + t5 * (q14_zm4[k] - q17_zp4[k]))
             along = g0 * n0[k] + g1 * n1[k] + g2 * n2[k]
-            u0, u1, u2 = w * (g0 - along * n0[k]), w * (g1 - along * n1[k]), w * (g2 - along * n2[k])
-            if accumulate:
-                u0 += row[3 * k]
-                u1 += row[3 * k + 1]
-                u2 += row[3 * k + 2]
-            row[3 * k] = u0
-            row[3 * k + 1] = u1
-            row[3 * k + 2] = u2
+            row[3 * k] = w * (g0 - along * n0[k])
+            row[3 * k + 1] = w * (g1 - along * n1[k])
+            row[3 * k + 2] = w * (g2 - along * n2[k])
 
 
 @nb.njit(cache=True)
@@ -312,7 +532,7 @@ def _wrap_plane_frame(plane, r):
 
 
 @nb.njit(parallel=True, cache=True)
-def _fused(buf, r, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, periodic, w, accumulate, gradient,
+def _fused(buf, r, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, periodic, w, gradient,
            store_density, rings, parts, density, out):
     """Energy pieces per x-plane (parts), density and (if ``gradient``) the tangent gradient
     in one sweep.  The x-planes are cut into one slab per ring (rings.shape[0], one per
@@ -336,7 +556,7 @@ def _fused(buf, r, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, periodic, w, accu
                 plane[:] = 0.0  # beyond a fixed border: no sites, no energy
             else:
                 i = ip % nx
-                pieces = _plane_derivatives(buf, r, i, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, plane,
+                pieces = _plane_derivatives(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, plane,
                                             density, store_density and owned)
                 if owned:
                     for q in range(6):
@@ -345,8 +565,10 @@ def _fused(buf, r, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, periodic, w, accu
                     _wrap_plane_frame(plane, r)
             g = ip - r
             if gradient and g >= i0 and lo <= g < nx - lo:
-                _plane_gradient(buf, r, g, ring[(g - r) % span], ring[g % span], ring[(g + r) % span],
-                                lo, w, accumulate, out)
+                planes = (ring[(g - 4) % span], ring[(g - 3) % span], ring[(g - 2) % span], ring[(g - 1) % span],
+                          ring[g % span], ring[(g + 1) % span], ring[(g + 2) % span], ring[(g + 3) % span],
+                          ring[(g + 4) % span])
+                _plane_gradient(buf, r, g, taps, planes, lo, w, out)
 
 
 @nb.njit(parallel=True, cache=True)
@@ -392,9 +614,9 @@ def _buffer(key, shape, dtype, zero=False):
     return array
 
 
-def _factors(n, h, r, dtype, metric_axis):
+def _factors(n, h, dtype, metric_axis):
     """Forward and backward difference factors and site weights along one axis."""
-    inverse = 1.0 / (r * h)
+    inverse = 1.0 / h
     if metric_axis is None:
         ones = np.ones(n, dtype=dtype)
         return ones * dtype(inverse), ones * dtype(inverse), ones
@@ -406,7 +628,7 @@ def _factors(n, h, r, dtype, metric_axis):
 _NO_GRADIENT = np.zeros((1, 1, 3))
 
 
-def _run(field, spacing, periodic, reaches_weights, c2, c4, normalisation, out, gradient=True, metric=None,
+def _run(field, spacing, periodic, taps, c2, c4, normalisation, out, gradient=True, metric=None,
          store_density=True):
     field = np.ascontiguousarray(field)
     nx, ny, nz, _ = field.shape
@@ -418,52 +640,47 @@ def _run(field, spacing, periodic, reaches_weights, c2, c4, normalisation, out, 
         if not periodic:  # the held border
             out[0], out[-1], out[:, 0], out[:, -1], out[:, :, 0], out[:, :, -1] = 0, 0, 0, 0, 0, 0
     parts = np.empty((nx, 6), dtype=np.float64)
-    pieces = np.zeros(6)
-    densities = []
     real = field.dtype.type
-    for count, (reach, weight) in enumerate(reaches_weights):
-        per_axis = [_factors(n, h, reach, real, None if metric is None else metric[reach][a])
-                    for a, (n, h) in enumerate(zip(field.shape[:3], (hx, hy, hz)))]
-        (fx, bx, wx), (fy, by, wy), (fz, bz, wz) = per_axis
-        density = _buffer(("density", reach), (nx, ny, nz), field.dtype)
-        if store_density:
-            densities.append((weight * normalisation, density))
-        padded_shape = (nx + 2 * reach, ny + 2 * reach, nz + 2 * reach)
-        buf = _buffer(("field", reach), (3,) + padded_shape, field.dtype)
-        slabs = max(1, min(nb.get_num_threads(), nx))
-        rings = _buffer(("rings", reach, periodic), (slabs, 2 * reach + 1, 18) + padded_shape[1:], field.dtype,
-                        zero=True)
-        _to_padded_planes(field, reach, periodic, buf)
-        _fused(buf, reach, fx, bx, fy, by, fz, bz, wx, wy, wz, float(c2), float(c4), periodic,
-               real(weight * scale), count > 0, gradient, store_density, rings, parts,
-               density, out.reshape(nx, ny, 3 * nz) if gradient else _NO_GRADIENT.astype(real))
-        pieces += weight * scale * parts.sum(axis=0)
-    return pieces, densities, out
+    r = PAD_WIDTH
+    per_axis = [_factors(n, h, real, None if metric is None else metric[a])
+                for a, (n, h) in enumerate(zip(field.shape[:3], (hx, hy, hz)))]
+    (fx, bx, wx), (fy, by, wy), (fz, bz, wz) = per_axis
+    density = _buffer("density", (nx, ny, nz), field.dtype)
+    padded_shape = (nx + 2 * r, ny + 2 * r, nz + 2 * r)
+    buf = _buffer("field", (3,) + padded_shape, field.dtype)
+    slabs = max(1, min(nb.get_num_threads(), nx))
+    rings = _buffer(("rings", periodic), (slabs, 2 * r + 1, 18) + padded_shape[1:], field.dtype, zero=True)
+    _to_padded_planes(field, r, periodic, buf)
+    _fused(buf, r, tuple(float(t) for t in taps), fx, bx, fy, by, fz, bz, wx, wy, wz, float(c2), float(c4),
+           periodic, real(scale), gradient, store_density, rings, parts, density,
+           out.reshape(nx, ny, 3 * nz) if gradient else _NO_GRADIENT.astype(real))
+    pieces = scale * parts.sum(axis=0)
+    return pieces, (normalisation * density.astype(np.float64) if store_density else None), out
 
 
-def value_and_grad(field: np.ndarray, spacing, periodic: bool, reaches_weights, c2: float, c4: float,
+def value_and_grad(field: np.ndarray, spacing, periodic: bool, taps, c2: float, c4: float,
                    normalisation: float, out: np.ndarray | None = None, metric=None):
     """Energy (float64) and tangent-projected gradient (the field's dtype, border zeroed
-    on fixed boxes) of c2 * dirichlet + c4 * skyrme_faddeev; ``reaches_weights`` lists
-    (reach, weight) pairs: ((1, 1.0),) for the second-order scheme, ((1, 4/3), (2, -1/3))
-    for the fourth-order one.  ``out`` (the field's shape and dtype) receives the gradient
-    when given: a relaxation reuses two buffers instead of asking the system for fresh
-    pages at every evaluation.  ``metric`` (stretched grids, see `solitons.energy.grid_metric`):
-    metric[reach][axis] = (forward link factors, backward link factors, site weights),
-    1-D arrays along that axis; None for a uniform grid."""
-    pieces, _, out = _run(field, spacing, periodic, reaches_weights, c2, c4, normalisation, out, metric=metric,
+    on fixed boxes) of c2 * dirichlet + c4 * skyrme_faddeev; ``taps`` are the scheme's
+    difference coefficients over `solitons.grid.TAP_OFFSETS` (`Stencil.taps`).  ``out``
+    (the field's shape and dtype) receives the gradient when given: a relaxation reuses
+    two buffers instead of asking the system for fresh pages at every evaluation.
+    ``metric`` (stretched grids, see `solitons.energy.grid_metric`): metric[axis] =
+    (forward difference factors, backward difference factors, site weights), 1-D arrays
+    along that axis; None for a uniform grid."""
+    pieces, _, out = _run(field, spacing, periodic, taps, c2, c4, normalisation, out, metric=metric,
                           store_density=False)
     return float(pieces.sum()), out
 
 
-def energy_pieces(field: np.ndarray, spacing, periodic: bool, reaches_weights, c2: float, c4: float,
+def energy_pieces(field: np.ndarray, spacing, periodic: bool, taps, c2: float, c4: float,
                   normalisation: float, metric=None):
     """The energy split as (E2 along x, y, z; E4 of the planes xy, xz, yz) and the
     normalised energy density per site (per unit physical volume; a copy).  The Derrick
     derivatives follow from the scaling of each piece (see `virial`)."""
-    pieces, densities, _ = _run(field, spacing, periodic, reaches_weights, c2, c4, normalisation, None,
-                                gradient=False, metric=metric)
-    return pieces, sum(weight * density.astype(np.float64) for weight, density in densities)
+    pieces, density, _ = _run(field, spacing, periodic, taps, c2, c4, normalisation, None,
+                              gradient=False, metric=metric)
+    return pieces, density
 
 
 def virial(pieces: np.ndarray) -> tuple[float, list[float]]:

@@ -139,9 +139,7 @@ def log_quartic_density(n, d, lap=None, c0=1.0, c1=0.1, scale=1.0, delta=1e-8):
 
 def dirichlet_lattice(forward, backward, centre, lap=None):
     """(1/2) sum_i (|D+_i n|^2 + |D-_i n|^2): the average of `dirichlet_density` over the
-    eight forward/backward octants.  (On a periodic box the forward links alone give the
-    same sum; next to a fixed border they do not, because the reach-2 stencil jumps over
-    the border layer.)"""
+    eight forward/backward octants (for any stencil: the average separates per axis)."""
     return 0.5 * sum(_dot(f, f) + _dot(b, b) for f, b in zip(forward, backward))
 
 

@@ -29,12 +29,16 @@ def continuum_twisted_energies(amplitude, k, side):
     return NORMALISATION * side**2 * e2, NORMALISATION * side**2 * e4
 
 
-@pytest.mark.parametrize("scheme, expected_ratio", [("second", 4.0), ("fourth", 16.0)])
-def test_order_of_accuracy(scheme, expected_ratio):
-    """Energy error falls by 2^order when h halves (common practice for testing stencils)."""
-    side, amplitude = 2 * np.pi, 1.2
+@pytest.mark.parametrize("scheme, expected_ratio, amplitude, coarse", [("second", 4.0, 1.2, 32),
+                                                                       ("fourth", 16.0, 0.7, 64)])
+def test_order_of_accuracy(scheme, expected_ratio, amplitude, coarse):
+    """Energy error falls by 2^order when h halves (common practice for testing stencils).
+    The fourth-order quartic error has a large h^6 part on this field (measured ratios
+    27, 21, 17.5 from 16 to 128 points at amplitude 0.7), so it is tested where the ratio
+    has settled: 64 -> 128 points."""
+    side = 2 * np.pi
     errors = []
-    for points in (32, 64):
+    for points in (coarse, 2 * coarse):
         grid = Grid.centred(points, side / points, "periodic")
         field, k = twisted_field(grid, amplitude)
         exact = continuum_twisted_energies(amplitude, k, side)
@@ -45,7 +49,7 @@ def test_order_of_accuracy(scheme, expected_ratio):
     assert np.all(ratios > 0.85 * expected_ratio) and np.all(ratios < 1.15 * expected_ratio), ratios
 
 
-@pytest.mark.parametrize("scheme", ["second", "fourth"])
+@pytest.mark.parametrize("scheme", ["second", "fourth", "sixth"])
 def test_checkerboard_perturbation_raises_energy(scheme):
     """A site-to-site flip (-1)^(x+y+z) is seen by the neighbour-coupled scheme; plain
     central differences give it zero energy (derived: the symbol of (f(x+h) - f(x-h))/2h
@@ -70,7 +74,7 @@ def test_checkerboard_perturbation_raises_energy(scheme):
     assert central < 1e-20
 
 
-@pytest.mark.parametrize("scheme", ["second", "fourth"])
+@pytest.mark.parametrize("scheme", ["second", "fourth", "sixth"])
 @pytest.mark.parametrize("boundary", ["fixed", "periodic"])
 def test_fast_route_equals_octant_average(scheme, boundary):
     """The built-in terms' fast lattice routes equal the generic eight-octant average

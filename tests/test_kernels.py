@@ -27,7 +27,7 @@ def model_pair(grid, scheme, c2=1.3, c4=0.7):
 
 
 @pytest.mark.parametrize("boundary", ["fixed", "periodic"])
-@pytest.mark.parametrize("scheme", ["second", "fourth"])
+@pytest.mark.parametrize("scheme", ["second", "fourth", "sixth"])
 def test_kernel_matches_jax_autodiff(boundary, scheme):
     """Same site sum, so energy, tangent gradient, per-term energies, density and virial
     agree with the jax autodiff route to rounding (1e-12 relative; derived).  Anisotropic

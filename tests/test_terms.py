@@ -39,12 +39,12 @@ def test_gradient_matches_finite_difference(kind, rng):
 def test_derrick_weight_on_analytic_field(kind):
     """E_term[n(lambda x)] = lambda^(d - 3) E_term[n] (Derrick; REFERENCES.md), with
     n(lambda x) the Hopf map of size 1/lambda on the same fine grid; tolerance 5e-3 covers
-    the fourth-order lattice error at h = 0.125 (largest measured: 3.8e-3 for the sextic
-    term; the profile has a cubic kink at r = 0), far below the 25 % that separates
-    neighbouring weights."""
+    the sixth-order scheme's lattice error at h = 0.1 (largest measured: 1.4e-3 for the
+    sextic term; the compact profile's kinks at r = 0 and r = R limit it), far below the
+    25 % that separates neighbouring weights."""
     lam = 1.25
-    grid = Grid.centred(65, 0.125, "fixed")
-    model = Model(single(kind), grid, "fourth")
+    grid = Grid.centred(81, 0.1, "fixed")
+    model = Model(single(kind), grid, "sixth")
     base = model.energies(hopf_map(grid, 1.0))[kind]
     scaled = model.energies(hopf_map(grid, 1.0 / lam))[kind]
     assert abs(base) > 1e-3
@@ -56,9 +56,11 @@ def test_derrick_weight_on_analytic_field(kind):
 def test_virial_equals_derrick_derivative(kind):
     """sum_a h_a dE/dh_a (autodiff) equals -dE[n(lambda x)]/dlambda at lambda = 1, taken
     here by a central finite difference over Hopf maps of size 1/lambda (derived; the
-    identity of ARCHITECTURE.md).  Holds for the non-homogeneous log term as well."""
-    grid = Grid.centred(65, 0.125, "fixed")
-    model = Model(single(kind), grid, "fourth")
+    identity of ARCHITECTURE.md).  Holds for the non-homogeneous log term as well; the
+    residual is the lattice error's dependence on the size (sixth-order scheme, h = 0.1:
+    largest measured 1.3e-3, for the quartic terms)."""
+    grid = Grid.centred(81, 0.1, "fixed")
+    model = Model(single(kind), grid, "sixth")
     energy = model.energies(hopf_map(grid, 1.0))[kind]
     virial = model.virial(hopf_map(grid, 1.0))["total"] * energy
     eps = 1e-3
@@ -72,7 +74,7 @@ def test_virial_equals_derrick_derivative(kind):
 def test_fast_route_equals_generic(kind):
     grid = Grid.centred(14, 0.45, "fixed")
     field = add_noise(hopf_map(grid, 1.2), grid, 0.1, 2)
-    for scheme in ("second", "fourth"):
+    for scheme in ("second", "fourth", "sixth"):
         fast = term_energies(field, np.asarray(grid.spacing), grid, single(kind), scheme)[0]
         generic = term_energies(field, np.asarray(grid.spacing), grid, single(kind), scheme, True)[0]
         assert abs(float(fast) - float(generic)) <= 1e-12 * abs(float(generic))

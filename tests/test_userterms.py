@@ -54,7 +54,7 @@ def test_user_copy_of_builtin_matches_to_1e12(user_file):
     assert report["target_rotation_invariant"]
     grid = Grid.centred(18, 0.4, "fixed")
     field = jnp.asarray(add_noise(hopf_map(grid, 1.2), grid, 0.05, 3))
-    for scheme in ("second", "fourth"):
+    for scheme in ("second", "fourth", "sixth"):
         user = Model((Term("q", kind),), grid, scheme).value_and_grad(field)
         builtin = Model((Term("q", BUILTIN_TERMS["skyrme_faddeev"]),), grid, scheme).value_and_grad(field)
         assert abs(float(user.energy) - float(builtin.energy)) < 1e-12 * float(builtin.energy)
