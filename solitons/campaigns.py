@@ -87,7 +87,9 @@ def scan_specs(path, overrides=()):
 LEGEND = {
     "stable": ("o", "tab:green", "stable soliton"),
     "collapsed": ("v", "tab:red", "shrank to the lattice"),
+    "under-resolved": ("1", "tab:red", "smaller than the lattice resolves"),
     "spread": ("^", "tab:orange", "grew to fill the box"),
+    "box too small": ("2", "tab:orange", "converged, touches the box"),
     "unwound": ("x", "tab:purple", "charge lost"),
     "unbounded": ("D", "black", "energy not bounded below"),
     "saddle": ("s", "tab:blue", "saddle (negative mode)"),

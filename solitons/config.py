@@ -29,7 +29,8 @@ DEFAULTS: dict[str, Any] = {
     "relax": {"method": "lbfgs", "max_steps": 4000, "force_tol": 1e-3, "energy_tol": 1e-10,
               "patience": 20, "time_step": 0.0, "checkpoint_every": 100,
               "progress_seconds": 5.0, "hessian_modes": 0, "backend": "auto",
-              "coarse_start": False, "preconditioner": "laplacian", "preconditioner_shift": 1.0},
+              "coarse_start": False, "preconditioner": "laplacian", "preconditioner_shift": 1.0,
+              "saddle_check": True, "saddle_noise": 0.02},
 }
 
 _TERM_KEYS = ("kind", "coupling")
@@ -115,6 +116,8 @@ class RelaxSpec:
     coarse_start: bool = False
     preconditioner: str = "laplacian"
     preconditioner_shift: float = 1.0
+    saddle_check: bool = True
+    saddle_noise: float = 0.02
 
 
 @dataclass(frozen=True)
@@ -454,6 +457,8 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
         coarse_start=c.boolean("relax", "coarse_start"),
         preconditioner=c.choice("relax", "preconditioner", PRECONDITIONERS),
         preconditioner_shift=c.real("relax", "preconditioner_shift", non_negative=True),
+        saddle_check=c.boolean("relax", "saddle_check"),
+        saddle_noise=c.real("relax", "saddle_noise", positive=True),
     )
     if grid.boundary == "periodic" and relax.preconditioner == "laplacian" and relax.preconditioner_shift == 0.0:
         c.fail("relax.preconditioner_shift", 0.0, "a periodic box needs a positive shift (the constant mode "

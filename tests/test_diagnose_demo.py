@@ -54,4 +54,4 @@ def test_demo_command_runs(tmp_path):
     assert proc.returncode == 1  # five steps cannot converge, and the run says so
     assert "NOT CONVERGED" in proc.stdout and proc.stderr == ""
     summary = json.loads((out / "summary.json").read_text())
-    assert summary["grid"]["scheme"] == "fourth" and summary["iterations"] == 5
+    assert summary["grid"]["scheme"] == "sixth" and summary["iterations"] == 5
