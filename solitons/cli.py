@@ -54,6 +54,12 @@ def _parser() -> argparse.ArgumentParser:
                        help="a running dask scheduler (tcp://host:port); default: a local cluster "
                             "with one single-threaded worker per core; 'inline' runs in this process")
         p.add_argument("--workers", type=int, default=None, help="local cluster size (default: cores)")
+    continuum = sub.add_parser("continuum", help="relax one configuration at three or more spacings "
+                               "([continuum] table) and extrapolate to h -> 0")
+    continuum.add_argument("config", help="TOML configuration with a [continuum] table")
+    continuum.add_argument("--out", help="output directory (default runs/<config name>)")
+    continuum.add_argument("overrides", nargs="*", metavar="dotted.key=value")
+    continuum.add_argument("--quiet", action="store_true", help="no progress lines on stderr")
     show = sub.add_parser("show", help="write PNG figures of a result file")
     show.add_argument("result", help="a result.h5 written by relax")
     show.add_argument("--out", help="directory for the figures (default: next to the result)")
@@ -82,7 +88,7 @@ def _figures(out: Path, level=None, stream=sys.stdout):
 def main(argv: list[str] | None = None) -> int:
     parser = _parser()
     args, extra = parser.parse_known_args(argv)
-    if args.command in ("relax", "demo", "scan", "survey"):
+    if args.command in ("relax", "demo", "scan", "survey", "continuum"):
         unknown = [item for item in extra if item.startswith("-") or "=" not in item]
         if unknown:
             parser.error(f"unrecognised arguments: {' '.join(unknown)}")
@@ -141,6 +147,15 @@ def main(argv: list[str] | None = None) -> int:
                   + (f"  {out / 'survey.png'}" if args.figures else "") + f"  {out / 'catalogue.sqlite'}")
             failed = [r for r in rows if r["status"] == "failed" or (r["status"] != "finished" and not args.table_only)]
             return EXIT_UNCONVERGED if failed else EXIT_OK
+        if args.command == "continuum":
+            from solitons.continuum import format_markdown, run_continuum
+
+            out = Path(args.out) if args.out else Path("runs") / Path(args.config).stem
+            report_ = run_continuum(args.config, out, args.overrides, stream=None if args.quiet else sys.stderr)
+            print(format_markdown(report_), end="")
+            print(f"files         {out / 'continuum.md'}  {out / 'continuum.csv'}  {out / 'continuum.json'}  "
+                  f"{out / 'continuum.png'}")
+            return EXIT_UNCONVERGED if report_["warnings"] else EXIT_OK
         if args.command == "demo":
             spec = load(None, args.overrides, text=demo_config_text())
             out = Path(args.out)

@@ -303,18 +303,20 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         final = snapshot(field, grid, density)
         final.update(virial=virial["total"], hopf_charge=charge)
         result.history.append_monitor(result.steps, final)
-    saddle = None
-    if (spec.relax.saddle_check and result.converged and spec.initial.noise == 0.0 and initial_field is None
-            and abs(charge - expected) < 0.5):
-        saddle = saddle_check(model, field, result.energy, rule, spec, stream)
     hessian = None
     if spec.relax.hessian_modes and result.converged:
         if stream is not None:
             print(f"  Hessian: lowest {spec.relax.hessian_modes} modes by Lanczos ...", file=stream, flush=True)
         hessian = lowest_modes(model, field, spec.relax.hessian_modes)
-    verdict = assess(field, grid, density, charge, expected,
-                     virial["total"], result.status, result.history.as_arrays(),
-                     result.history.energy, probe["negative"], hessian, saddle)
+    def verdict_with(saddle=None):
+        return assess(field, grid, density, charge, expected, virial["total"], result.status,
+                      result.history.as_arrays(), result.history.energy, probe["negative"], hessian, saddle)
+
+    verdict = verdict_with()
+    # only a state that would be called stable needs the evidence that it is no saddle
+    if (verdict["verdict"] == "stable" and spec.relax.saddle_check and spec.initial.noise == 0.0
+            and initial_field is None):
+        verdict = verdict_with(saddle_check(model, field, result.energy, rule, spec, stream))
     if abs(initial_charge - expected) > CHARGE_CHECK * expected:
         verdict["warnings"].append(
             f"the initial data measures Q = {initial_charge:.4f} against the family's {expected}: "

@@ -52,15 +52,20 @@ def finite_json(value):
     return value
 
 
-def write_json(path: str | Path, data: dict) -> None:
-    """Atomic, strict JSON (non-finite numbers written as null)."""
+def atomic_write_text(path: str | Path, text: str) -> None:
+    """Write a text file atomically (temporary name in the same folder, then rename)."""
     path = Path(path)
     tmp = _atomic_target(path)
     try:
-        tmp.write_text(json.dumps(finite_json(data), indent=2, allow_nan=False) + "\n")
+        tmp.write_text(text)
         os.replace(tmp, path)
     finally:
         tmp.unlink(missing_ok=True)
+
+
+def write_json(path: str | Path, data: dict) -> None:
+    """Atomic, strict JSON (non-finite numbers written as null)."""
+    atomic_write_text(path, json.dumps(finite_json(data), indent=2, allow_nan=False) + "\n")
 
 
 def _write_field(h5, field, grid: Grid):

@@ -13,12 +13,16 @@ M_a = sum_s d_a^s (d_a^s)^T and S_a = tr M_a,
 
     de/dd_a^s = c2 d_a^s + (c4 / 2) sum_{b != a} (S_b - M_b) d_a^s.
 
-Per x-plane, `_plane_derivatives` writes the derivatives of each site's density with
-respect to its six differences (18 values per site), and `_plane_gradient` gathers those
-of a plane and its neighbour planes into dE/dn (each difference is (n(x + r e_a) - n(x))
-/ (r h_a), times the link factor on a stretched grid), projects on the tangent plane and
+Every scheme is one set of taps over the offsets `solitons.grid.TAP_OFFSETS` (-1 .. 4):
+d+ = sum_o c_o (n(x + o) - n(x)) f and d- = -sum_o c_o (n(x - o) - n(x)) f, with f the
+difference factor (1 / h, or 1 / (h dx/dxi) on a stretched grid), so the second-order
+scheme runs with zero taps (the price of one code path: measured in
+analysis/bench_energy.txt).  Per x-plane, `_plane_derivatives` writes the derivatives of
+each site's density with respect to its six differences (18 values per site), and
+`_plane_gradient` gathers those of the nine planes x - 4 .. x + 4 into dE/dn (site x
+collects sum_o c_o (P+(x - o) - P-(x + o)) per axis), projects on the tangent plane and
 zeroes the held border.  `_fused` runs both in one sweep per thread-slab with a ring of
-2 r + 1 derivative planes, so the derivatives stay in cache.  The energy of each x-plane
+nine derivative planes, so the derivatives stay in cache.  The energy of each x-plane
 is accumulated in float64 whatever the field's precision.
 
 Terms other than these two, and user terms, use the jax route.
@@ -81,13 +85,14 @@ def _to_padded_planes(field, r, periodic, buf):
 
 @nb.njit(cache=True, fastmath=_FAST)
 def _plane_derivatives(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, plane, density, store_density):
-    """For x-plane i: plane[3 * row + c, j + r, k + r] = d (w e) / d (d_row)_c at site (i, j, k),
-    rows (x+, x-, y+, y-, z+, z-); returns the plane's sums of the six pieces of w e
-    (c2 e2 along x, y, z; c4 e4 of the pairs xy, xz, yz); density[i] = e (unnormalised) when
-    ``store_density``.  fx[i] (bx[i]) multiplies the forward (backward) difference of the
-    field values along x at site i: 1 / (r h_x) on a uniform grid, 1 / (r h_x dx/dxi) at
-    the link's midpoint on a stretched one; likewise y, z.  w = wx[i] wy[j] wz[k] is the
-    site's dx/dxi product.
+    """For x-plane i: plane[3 * row + c, j + r, k + r] = d (w e) / d (d_row)_c at site (i, j, k)
+    times the row's difference factor, rows (x+, x-, y+, y-, z+, z-); returns the plane's
+    sums of the six pieces of w e (c2 e2 along x, y, z; c4 e4 of the pairs xy, xz, yz);
+    density[i] = e (unnormalised) when ``store_density``.  ``taps``: the scheme's
+    coefficients over TAP_OFFSETS (r = PAD_WIDTH).  fx[i] (bx[i]) multiplies the forward
+    (backward) difference along x at site i: 1 / h_x on a uniform grid, 1 / (h_x dx/dxi)
+    where the difference estimates the derivative on a stretched one; likewise y, z.
+    w = wx[i] wy[j] wz[k] is the site's dx/dxi product.
 
     The k loop reads and writes 1-D row views (v<component><neighbour>, d<row>) so that its
     index is a plain counter from 0: LLVM then vectorises it (see VECTORISE_OPTIONS)."""

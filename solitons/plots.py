@@ -272,6 +272,28 @@ def plot_gallery(entries: list[dict], path, columns: int = 4, level: float = DEF
     return save_figure(fig, path)
 
 
+def plot_continuum(report: dict, path) -> Path:
+    """Energy and virial of each level against h^p with the fitted lines and limits
+    (report of `solitons.continuum.summarise`)."""
+    order, rows, fits = report["order"], report["levels"], report["fits"]
+    x = np.array([r["spacing"] for r in rows]) ** order
+    line = np.linspace(0.0, 1.05 * x.max(), 50)
+    fig, axes = plt.subplots(1, 2, figsize=(12, 4.5), dpi=DPI, constrained_layout=True)
+    for ax, key, label in ((axes[0], "energy", "E"), (axes[1], "virial", "virial")):
+        fit = fits[key]
+        ax.plot(x, [r[key] for r in rows], "o", ms=6, label="lattice")
+        ax.plot(line, fit["limit"] + fit["slope"] * line, "-", lw=1, label=f"{label}(h) = {label}$_\\infty$ + c h$^{order}$")
+        ax.errorbar([0.0], [fit["limit"]], yerr=[fit["error"]], fmt="s", color="tab:red", capsize=4,
+                    label=f"{label}$_\\infty$ = {fit['limit']:.6f} $\\pm$ {fit['error']:.1e}")
+        ax.set_xlabel(f"h$^{order}$ (model length units$^{order}$)")
+        ax.set_ylabel(f"{label} (Battye-Sutcliffe units)" if key == "energy" else label)
+        ax.ticklabel_format(axis="y", useOffset=False)
+        ax.grid(alpha=0.3)
+        ax.legend(fontsize=8)
+    fig.suptitle(f"continuum limit over {len(rows)} resolutions, box side {rows[0]['box_side']:.4g}")
+    return save_figure(fig, path)
+
+
 def save_figure(fig, path) -> Path:
     """Write a PNG atomically (temporary name, then rename) and close the figure."""
     path = Path(path)

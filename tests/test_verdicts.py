@@ -1,5 +1,6 @@
 """Verdicts reproduce Derrick's theorem and the derived quartic bound; a potential keeps
-Q = 1 and makes it smaller.  Box of side 8 (41^3, h = 0.2, fixed border)."""
+Q = 1 and makes it smaller; the lattice is named when it decides.  Box of side 8 (41^3,
+h = 0.2, fixed border) unless said."""
 
 import pytest
 
@@ -57,3 +58,30 @@ def test_quartic_combination_outside_the_bound_is_never_stable(tmp_path, b):
     assert summary["verdict"] != "stable"
     assert summary["bounded_below_probe"]["negative"]
     assert any("not bounded below" in w for w in summary["warnings"])
+
+
+def test_massive_soliton_on_a_coarse_lattice_is_under_resolved_not_collapsed(tmp_path):
+    """Massive Hopf solitons exist at every mass (Foster, arXiv:1012.2595, abstract); with
+    mass 4 the core is thinner than h = 0.25 resolves (measured: 0.58 thick, 2.3 spacings,
+    E = 1.9998 against 1.8633 at h = 0.1).  Formerly reported `collapsed` (it unwound);
+    the verdict must name the lattice and a spacing that resolves the core (below h)."""
+    summary = run(tmp_path, ["grid.points=49", "grid.spacing=0.25", 'terms.mass.kind="potential"',
+                             "terms.mass.coupling=1.0", "terms.mass.mass=4.0"], steps=600)
+    assert summary["verdict"] == "under-resolved", summary["warnings"]
+    assert summary["evidence"]["resolving_spacing"] < 0.25
+    assert any("rerun with h <=" in w for w in summary["warnings"])
+
+
+@pytest.mark.slow
+def test_axial_charge_three_is_found_to_be_a_saddle(tmp_path):
+    """The axial A_{3,1} state is a saddle: the charge-3 minimum is not axial (Sutcliffe
+    2007, arXiv:0705.1468, from memory; reported for this tool: with noise it falls 0.9 %
+    lower).  Relaxed from the symmetric axial(3,1) data it converges, and the saddle check
+    must find the lower state (measured on 61^3, h = 0.2: 0.68 % lower; here 41^3,
+    h = 0.25, box 10)."""
+    summary = run(tmp_path, ["grid.points=41", "grid.spacing=0.25", 'initial.a=3', "initial.size=1.4"],
+                  steps=600)
+    assert summary["verdict"] == "saddle", summary["warnings"]
+    check = summary["evidence"]["saddle_check"]
+    assert check["perturbed_energy"] < (1 - 1e-3) * check["energy"]
+    assert abs(check["perturbed_hopf_charge"] - 3) < 0.05
