@@ -34,9 +34,11 @@ import llvmlite.binding as llvm
 import numba as nb
 import numpy as np
 
-from solitons.grid import PAD_WIDTH
+from solitons.grid import PAD_WIDTH, STENCILS
 
 KERNEL_TERMS = ("dirichlet", "skyrme_faddeev")
+# the one-site difference runs on its own narrow path (pad 1, three planes, no zero taps)
+NARROW_TAPS = STENCILS["second"].taps
 
 
 _FAST = {"nsz", "arcp", "contract", "afn", "reassoc"}  # fastmath without "no NaN / no Inf"
@@ -81,6 +83,92 @@ def _to_padded_planes(field, r, periodic, buf):
                     buf[0, pi, pj, pk] = 0.0
                     buf[1, pi, pj, pk] = 0.0
                     buf[2, pi, pj, pk] = 1.0
+
+
+@nb.njit(inline="always", fastmath=_FAST)
+def _site(differences, constants, w, factors):
+    """One site: from its six difference vectors, the six weighted energy pieces (w c2 e2
+    along x, y, z; w c4 e4 of xy, xz, yz), the unweighted density, and the 18 derivatives
+    d (w e) / d (difference) times the difference factors.  Shared by the k loops of both
+    stencil widths, inlined there so that the loops still vectorise (packed in tuples:
+    numba's inliner refuses a call with this many arguments)."""
+    xf0, xf1, xf2, xb0, xb1, xb2, yf0, yf1, yf2, yb0, yb1, yb2, zf0, zf1, zf2, zb0, zb1, zb2 = differences
+    c2, c4, h, half, quarter, two = constants
+    ixf, ixb, iyf, iyb, izf, izb = factors
+    # M_a = f f^T + b b^T (entries 00 11 22 01 02 12), S_a = tr M_a
+    x00 = xf0 * xf0 + xb0 * xb0
+    x11 = xf1 * xf1 + xb1 * xb1
+    x22 = xf2 * xf2 + xb2 * xb2
+    x01 = xf0 * xf1 + xb0 * xb1
+    x02 = xf0 * xf2 + xb0 * xb2
+    x12 = xf1 * xf2 + xb1 * xb2
+    y00 = yf0 * yf0 + yb0 * yb0
+    y11 = yf1 * yf1 + yb1 * yb1
+    y22 = yf2 * yf2 + yb2 * yb2
+    y01 = yf0 * yf1 + yb0 * yb1
+    y02 = yf0 * yf2 + yb0 * yb2
+    y12 = yf1 * yf2 + yb1 * yb2
+    z00 = zf0 * zf0 + zb0 * zb0
+    z11 = zf1 * zf1 + zb1 * zb1
+    z22 = zf2 * zf2 + zb2 * zb2
+    z01 = zf0 * zf1 + zb0 * zb1
+    z02 = zf0 * zf2 + zb0 * zb2
+    z12 = zf1 * zf2 + zb1 * zb2
+    sx = x00 + x11 + x22
+    sy = y00 + y11 + y22
+    sz = z00 + z11 + z22
+    xy = x00 * y00 + x11 * y11 + x22 * y22 + two * (x01 * y01 + x02 * y02 + x12 * y12)
+    xz = x00 * z00 + x11 * z11 + x22 * z22 + two * (x01 * z01 + x02 * z02 + x12 * z12)
+    yz = y00 * z00 + y11 * z11 + y22 * z22 + two * (y01 * z01 + y02 * z02 + y12 * z12)
+    exy = quarter * c4 * (sx * sy - xy)
+    exz = quarter * c4 * (sx * sz - xz)
+    eyz = quarter * c4 * (sy * sz - yz)
+    density = half * c2 * (sx + sy + sz) + exy + exz + eyz
+    # K_x = c2 + h (S_y + S_z) - h (M_y + M_z), and cyclic; times 1 / (r h_a)
+    dg = c2 + h * (sy + sz)
+    k00 = dg - h * (y00 + z00)
+    k11 = dg - h * (y11 + z11)
+    k22 = dg - h * (y22 + z22)
+    k01 = -h * (y01 + z01)
+    k02 = -h * (y02 + z02)
+    k12 = -h * (y12 + z12)
+    wf, wb = w * ixf, w * ixb
+    g0 = wf * (k00 * xf0 + k01 * xf1 + k02 * xf2)
+    g1 = wf * (k01 * xf0 + k11 * xf1 + k12 * xf2)
+    g2 = wf * (k02 * xf0 + k12 * xf1 + k22 * xf2)
+    g3 = wb * (k00 * xb0 + k01 * xb1 + k02 * xb2)
+    g4 = wb * (k01 * xb0 + k11 * xb1 + k12 * xb2)
+    g5 = wb * (k02 * xb0 + k12 * xb1 + k22 * xb2)
+    dg = c2 + h * (sx + sz)
+    k00 = dg - h * (x00 + z00)
+    k11 = dg - h * (x11 + z11)
+    k22 = dg - h * (x22 + z22)
+    k01 = -h * (x01 + z01)
+    k02 = -h * (x02 + z02)
+    k12 = -h * (x12 + z12)
+    wf, wb = w * iyf, w * iyb
+    g6 = wf * (k00 * yf0 + k01 * yf1 + k02 * yf2)
+    g7 = wf * (k01 * yf0 + k11 * yf1 + k12 * yf2)
+    g8 = wf * (k02 * yf0 + k12 * yf1 + k22 * yf2)
+    g9 = wb * (k00 * yb0 + k01 * yb1 + k02 * yb2)
+    g10 = wb * (k01 * yb0 + k11 * yb1 + k12 * yb2)
+    g11 = wb * (k02 * yb0 + k12 * yb1 + k22 * yb2)
+    dg = c2 + h * (sx + sy)
+    k00 = dg - h * (x00 + y00)
+    k11 = dg - h * (x11 + y11)
+    k22 = dg - h * (x22 + y22)
+    k01 = -h * (x01 + y01)
+    k02 = -h * (x02 + y02)
+    k12 = -h * (x12 + y12)
+    wf, wb = w * izf, w * izb
+    g12 = wf * (k00 * zf0 + k01 * zf1 + k02 * zf2)
+    g13 = wf * (k01 * zf0 + k11 * zf1 + k12 * zf2)
+    g14 = wf * (k02 * zf0 + k12 * zf1 + k22 * zf2)
+    g15 = wb * (k00 * zb0 + k01 * zb1 + k02 * zb2)
+    g16 = wb * (k01 * zb0 + k11 * zb1 + k12 * zb2)
+    g17 = wb * (k02 * zb0 + k12 * zb1 + k22 * zb2)
+    return (w * half * c2 * sx, w * half * c2 * sy, w * half * c2 * sz, w * exy, w * exz, w * eyz, density,
+            g0, g1, g2, g3, g4, g5, g6, g7, g8, g9, g10, g11, g12, g13, g14, g15, g16, g17)
 
 
 @nb.njit(cache=True, fastmath=_FAST)
@@ -205,7 +293,6 @@ def _plane_derivatives(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, 
         r0 = r1 = r2 = r3 = r4 = r5 = buf.dtype.type(0.0)
         for k in range(nz):
             izf, izb = fz[k], bz[k]
-            w = wxy * wz[k]
             n0, n1, n2 = v0[k], v1[k], v2[k]
             xf0 = (t0 * (v0xm1[k] - n0) + t2 * (v0xp1[k] - n0) + t3 * (v0xp2[k] - n0)
                    + t4 * (v0xp3[k] - n0) + t5 * (v0xp4[k] - n0)) * ixf
@@ -243,84 +330,118 @@ def _plane_derivatives(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, 
                     + t4 * (v1zm3[k] - n1) + t5 * (v1zm4[k] - n1)) * izb
             zb2 = -(t0 * (v2zp1[k] - n2) + t2 * (v2zm1[k] - n2) + t3 * (v2zm2[k] - n2)
                     + t4 * (v2zm3[k] - n2) + t5 * (v2zm4[k] - n2)) * izb
-            # M_a = f f^T + b b^T (entries 00 11 22 01 02 12), S_a = tr M_a
-            x00 = xf0 * xf0 + xb0 * xb0
-            x11 = xf1 * xf1 + xb1 * xb1
-            x22 = xf2 * xf2 + xb2 * xb2
-            x01 = xf0 * xf1 + xb0 * xb1
-            x02 = xf0 * xf2 + xb0 * xb2
-            x12 = xf1 * xf2 + xb1 * xb2
-            y00 = yf0 * yf0 + yb0 * yb0
-            y11 = yf1 * yf1 + yb1 * yb1
-            y22 = yf2 * yf2 + yb2 * yb2
-            y01 = yf0 * yf1 + yb0 * yb1
-            y02 = yf0 * yf2 + yb0 * yb2
-            y12 = yf1 * yf2 + yb1 * yb2
-            z00 = zf0 * zf0 + zb0 * zb0
-            z11 = zf1 * zf1 + zb1 * zb1
-            z22 = zf2 * zf2 + zb2 * zb2
-            z01 = zf0 * zf1 + zb0 * zb1
-            z02 = zf0 * zf2 + zb0 * zb2
-            z12 = zf1 * zf2 + zb1 * zb2
-            sx = x00 + x11 + x22
-            sy = y00 + y11 + y22
-            sz = z00 + z11 + z22
-            xy = x00 * y00 + x11 * y11 + x22 * y22 + two * (x01 * y01 + x02 * y02 + x12 * y12)
-            xz = x00 * z00 + x11 * z11 + x22 * z22 + two * (x01 * z01 + x02 * z02 + x12 * z12)
-            yz = y00 * z00 + y11 * z11 + y22 * z22 + two * (y01 * z01 + y02 * z02 + y12 * z12)
-            exy = quarter * c4 * (sx * sy - xy)
-            exz = quarter * c4 * (sx * sz - xz)
-            eyz = quarter * c4 * (sy * sz - yz)
-            r0 += w * half * c2 * sx
-            r1 += w * half * c2 * sy
-            r2 += w * half * c2 * sz
-            r3 += w * exy
-            r4 += w * exz
-            r5 += w * eyz
-            dens[k] = half * c2 * (sx + sy + sz) + exy + exz + eyz
-            # K_x = c2 + h (S_y + S_z) - h (M_y + M_z), and cyclic; times 1 / (r h_a)
-            dg = c2 + h * (sy + sz)
-            k00 = dg - h * (y00 + z00)
-            k11 = dg - h * (y11 + z11)
-            k22 = dg - h * (y22 + z22)
-            k01 = -h * (y01 + z01)
-            k02 = -h * (y02 + z02)
-            k12 = -h * (y12 + z12)
-            wf, wb = w * ixf, w * ixb
-            d0[k] = wf * (k00 * xf0 + k01 * xf1 + k02 * xf2)
-            d1[k] = wf * (k01 * xf0 + k11 * xf1 + k12 * xf2)
-            d2[k] = wf * (k02 * xf0 + k12 * xf1 + k22 * xf2)
-            d3[k] = wb * (k00 * xb0 + k01 * xb1 + k02 * xb2)
-            d4[k] = wb * (k01 * xb0 + k11 * xb1 + k12 * xb2)
-            d5[k] = wb * (k02 * xb0 + k12 * xb1 + k22 * xb2)
-            dg = c2 + h * (sx + sz)
-            k00 = dg - h * (x00 + z00)
-            k11 = dg - h * (x11 + z11)
-            k22 = dg - h * (x22 + z22)
-            k01 = -h * (x01 + z01)
-            k02 = -h * (x02 + z02)
-            k12 = -h * (x12 + z12)
-            wf, wb = w * iyf, w * iyb
-            d6[k] = wf * (k00 * yf0 + k01 * yf1 + k02 * yf2)
-            d7[k] = wf * (k01 * yf0 + k11 * yf1 + k12 * yf2)
-            d8[k] = wf * (k02 * yf0 + k12 * yf1 + k22 * yf2)
-            d9[k] = wb * (k00 * yb0 + k01 * yb1 + k02 * yb2)
-            d10[k] = wb * (k01 * yb0 + k11 * yb1 + k12 * yb2)
-            d11[k] = wb * (k02 * yb0 + k12 * yb1 + k22 * yb2)
-            dg = c2 + h * (sx + sy)
-            k00 = dg - h * (x00 + y00)
-            k11 = dg - h * (x11 + y11)
-            k22 = dg - h * (x22 + y22)
-            k01 = -h * (x01 + y01)
-            k02 = -h * (x02 + y02)
-            k12 = -h * (x12 + y12)
-            wf, wb = w * izf, w * izb
-            d12[k] = wf * (k00 * zf0 + k01 * zf1 + k02 * zf2)
-            d13[k] = wf * (k01 * zf0 + k11 * zf1 + k12 * zf2)
-            d14[k] = wf * (k02 * zf0 + k12 * zf1 + k22 * zf2)
-            d15[k] = wb * (k00 * zb0 + k01 * zb1 + k02 * zb2)
-            d16[k] = wb * (k01 * zb0 + k11 * zb1 + k12 * zb2)
-            d17[k] = wb * (k02 * zb0 + k12 * zb1 + k22 * zb2)
+            (e0, e1, e2, e3, e4, e5, e, g0, g1, g2, g3, g4, g5, g6, g7, g8, g9, g10, g11, g12, g13, g14, g15, g16,
+             g17) = _site((xf0, xf1, xf2, xb0, xb1, xb2, yf0, yf1, yf2, yb0, yb1, yb2, zf0, zf1, zf2, zb0, zb1, zb2),
+                          (c2, c4, h, half, quarter, two), wxy * wz[k], (ixf, ixb, iyf, iyb, izf, izb))
+            dens[k] = e
+            d0[k], d1[k], d2[k], d3[k], d4[k], d5[k] = g0, g1, g2, g3, g4, g5
+            d6[k], d7[k], d8[k], d9[k], d10[k], d11[k] = g6, g7, g8, g9, g10, g11
+            d12[k], d13[k], d14[k], d15[k], d16[k], d17[k] = g12, g13, g14, g15, g16, g17
+            r0 += e0
+            r1 += e1
+            r2 += e2
+            r3 += e3
+            r4 += e4
+            r5 += e5
+        p0 += np.float64(r0)
+        p1 += np.float64(r1)
+        p2 += np.float64(r2)
+        p3 += np.float64(r3)
+        p4 += np.float64(r4)
+        p5 += np.float64(r5)
+    return p0, p1, p2, p3, p4, p5
+
+
+@nb.njit(cache=True, fastmath=_FAST)
+def _plane_derivatives_narrow(buf, r, i, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, plane, density, store_density):
+    """`_plane_derivatives` for the one-site difference of the second-order scheme (pad
+    r = 1): D+ = (n(x + e_a) - n(x)) f_a, D- = (n(x) - n(x - e_a)) f_a; no zero taps."""
+    ny, nz = buf.shape[2] - 2 * r, buf.shape[3] - 2 * r
+    real = buf.dtype.type  # every constant in the field's precision (float32 * float64 would promote)
+    c2, c4 = real(c2), real(c4)
+    h, half, quarter, two = real(0.5 * c4), real(0.5), real(0.25), real(2.0)
+    ci = i + r
+    p0 = p1 = p2 = p3 = p4 = p5 = 0.0
+    ixf, ixb = fx[i], bx[i]
+    for j in range(ny):
+        cj = j + r
+        iyf, iyb = fy[j], by[j]
+        wxy = wx[i] * wy[j]
+        v0 = buf[0, ci, cj, r:]
+        v0xp1 = buf[0, ci + 1, cj, r:]
+        v0xm1 = buf[0, ci - 1, cj, r:]
+        v0yp1 = buf[0, ci, cj + 1, r:]
+        v0ym1 = buf[0, ci, cj - 1, r:]
+        v0zp1 = buf[0, ci, cj, r + 1:]
+        v0zm1 = buf[0, ci, cj, r - 1:]
+        v1 = buf[1, ci, cj, r:]
+        v1xp1 = buf[1, ci + 1, cj, r:]
+        v1xm1 = buf[1, ci - 1, cj, r:]
+        v1yp1 = buf[1, ci, cj + 1, r:]
+        v1ym1 = buf[1, ci, cj - 1, r:]
+        v1zp1 = buf[1, ci, cj, r + 1:]
+        v1zm1 = buf[1, ci, cj, r - 1:]
+        v2 = buf[2, ci, cj, r:]
+        v2xp1 = buf[2, ci + 1, cj, r:]
+        v2xm1 = buf[2, ci - 1, cj, r:]
+        v2yp1 = buf[2, ci, cj + 1, r:]
+        v2ym1 = buf[2, ci, cj - 1, r:]
+        v2zp1 = buf[2, ci, cj, r + 1:]
+        v2zm1 = buf[2, ci, cj, r - 1:]
+        d0 = plane[0, cj, r:]
+        d1 = plane[1, cj, r:]
+        d2 = plane[2, cj, r:]
+        d3 = plane[3, cj, r:]
+        d4 = plane[4, cj, r:]
+        d5 = plane[5, cj, r:]
+        d6 = plane[6, cj, r:]
+        d7 = plane[7, cj, r:]
+        d8 = plane[8, cj, r:]
+        d9 = plane[9, cj, r:]
+        d10 = plane[10, cj, r:]
+        d11 = plane[11, cj, r:]
+        d12 = plane[12, cj, r:]
+        d13 = plane[13, cj, r:]
+        d14 = plane[14, cj, r:]
+        d15 = plane[15, cj, r:]
+        d16 = plane[16, cj, r:]
+        d17 = plane[17, cj, r:]
+        dens = density[i, j]
+        r0 = r1 = r2 = r3 = r4 = r5 = buf.dtype.type(0.0)
+        for k in range(nz):
+            izf, izb = fz[k], bz[k]
+            n0, n1, n2 = v0[k], v1[k], v2[k]
+            xf0 = (v0xp1[k] - n0) * ixf
+            xf1 = (v1xp1[k] - n1) * ixf
+            xf2 = (v2xp1[k] - n2) * ixf
+            xb0 = (n0 - v0xm1[k]) * ixb
+            xb1 = (n1 - v1xm1[k]) * ixb
+            xb2 = (n2 - v2xm1[k]) * ixb
+            yf0 = (v0yp1[k] - n0) * iyf
+            yf1 = (v1yp1[k] - n1) * iyf
+            yf2 = (v2yp1[k] - n2) * iyf
+            yb0 = (n0 - v0ym1[k]) * iyb
+            yb1 = (n1 - v1ym1[k]) * iyb
+            yb2 = (n2 - v2ym1[k]) * iyb
+            zf0 = (v0zp1[k] - n0) * izf
+            zf1 = (v1zp1[k] - n1) * izf
+            zf2 = (v2zp1[k] - n2) * izf
+            zb0 = (n0 - v0zm1[k]) * izb
+            zb1 = (n1 - v1zm1[k]) * izb
+            zb2 = (n2 - v2zm1[k]) * izb
+            (e0, e1, e2, e3, e4, e5, e, g0, g1, g2, g3, g4, g5, g6, g7, g8, g9, g10, g11, g12, g13, g14, g15, g16,
+             g17) = _site((xf0, xf1, xf2, xb0, xb1, xb2, yf0, yf1, yf2, yb0, yb1, yb2, zf0, zf1, zf2, zb0, zb1, zb2),
+                          (c2, c4, h, half, quarter, two), wxy * wz[k], (ixf, ixb, iyf, iyb, izf, izb))
+            dens[k] = e
+            d0[k], d1[k], d2[k], d3[k], d4[k], d5[k] = g0, g1, g2, g3, g4, g5
+            d6[k], d7[k], d8[k], d9[k], d10[k], d11[k] = g6, g7, g8, g9, g10, g11
+            d12[k], d13[k], d14[k], d15[k], d16[k], d17[k] = g12, g13, g14, g15, g16, g17
+            r0 += e0
+            r1 += e1
+            r2 += e2
+            r3 += e3
+            r4 += e4
+            r5 += e5
         p0 += np.float64(r0)
         p1 += np.float64(r1)
         p2 += np.float64(r2)
@@ -523,6 +644,43 @@ def _plane_gradient(buf, r, i, taps, planes, lo, w, out):
             row[3 * k + 2] = w * (g2 - along * n2[k])
 
 
+@nb.njit(cache=True, fastmath=_FAST)
+def _plane_gradient_narrow(buf, r, i, lower, own, upper, lo, w, out):
+    """`_plane_gradient` for the one-site difference (pad r = 1): site x gathers
+    P+(x - 1) - P+(x) + P-(x) - P-(x + 1) per axis from the planes of x-planes i - 1
+    (lower), i (own) and i + 1 (upper)."""
+    ny, nz = out.shape[1], out.shape[2] // 3
+    ci = i + r
+    b, m = r + lo, nz - 2 * lo
+    for j in range(lo, ny - lo):
+        cj = j + r
+        n0, n1, n2 = buf[0, ci, cj, b:], buf[1, ci, cj, b:], buf[2, ci, cj, b:]
+        a0, a1, a2, a3, a4, a5 = (own[0, cj, b:], own[1, cj, b:], own[2, cj, b:],
+                                  own[3, cj, b:], own[4, cj, b:], own[5, cj, b:])
+        a6, a7, a8, a9, a10, a11 = (own[6, cj, b:], own[7, cj, b:], own[8, cj, b:],
+                                    own[9, cj, b:], own[10, cj, b:], own[11, cj, b:])
+        a12, a13, a14, a15, a16, a17 = (own[12, cj, b:], own[13, cj, b:], own[14, cj, b:],
+                                        own[15, cj, b:], own[16, cj, b:], own[17, cj, b:])
+        xm0, xm1, xm2 = lower[0, cj, b:], lower[1, cj, b:], lower[2, cj, b:]
+        xp3, xp4, xp5 = upper[3, cj, b:], upper[4, cj, b:], upper[5, cj, b:]
+        ym6, ym7, ym8 = own[6, cj - 1, b:], own[7, cj - 1, b:], own[8, cj - 1, b:]
+        yp9, yp10, yp11 = own[9, cj + 1, b:], own[10, cj + 1, b:], own[11, cj + 1, b:]
+        zm12, zm13, zm14 = own[12, cj, b - 1:], own[13, cj, b - 1:], own[14, cj, b - 1:]
+        zp15, zp16, zp17 = own[15, cj, b + 1:], own[16, cj, b + 1:], own[17, cj, b + 1:]
+        row = out[i, j, 3 * lo:]
+        for k in range(m):
+            g0 = (a3[k] - a0[k] + a9[k] - a6[k] + a15[k] - a12[k]
+                  + xm0[k] - xp3[k] + ym6[k] - yp9[k] + zm12[k] - zp15[k])
+            g1 = (a4[k] - a1[k] + a10[k] - a7[k] + a16[k] - a13[k]
+                  + xm1[k] - xp4[k] + ym7[k] - yp10[k] + zm13[k] - zp16[k])
+            g2 = (a5[k] - a2[k] + a11[k] - a8[k] + a17[k] - a14[k]
+                  + xm2[k] - xp5[k] + ym8[k] - yp11[k] + zm14[k] - zp17[k])
+            along = g0 * n0[k] + g1 * n1[k] + g2 * n2[k]
+            row[3 * k] = w * (g0 - along * n0[k])
+            row[3 * k + 1] = w * (g1 - along * n1[k])
+            row[3 * k + 2] = w * (g2 - along * n2[k])
+
+
 @nb.njit(cache=True)
 def _wrap_plane_frame(plane, r):
     """Periodic boxes: copy a derivative plane's interior into its r-wide y and z frame."""
@@ -537,13 +695,14 @@ def _wrap_plane_frame(plane, r):
 
 
 @nb.njit(parallel=True, cache=True)
-def _fused(buf, r, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, periodic, w, gradient,
+def _fused(buf, r, narrow, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, periodic, w, gradient,
            store_density, rings, parts, density, out):
     """Energy pieces per x-plane (parts), density and (if ``gradient``) the tangent gradient
     in one sweep.  The x-planes are cut into one slab per ring (rings.shape[0], one per
     thread); a slab computes the derivative planes of its own x-planes and r on either side
     (a recomputed halo) into a ring of 2 r + 1 planes, and gathers the gradient of plane
-    i - r as soon as plane i is done, so the derivatives (18 values per site, the largest
+    i - r as soon as plane i is done (r = 1 for the narrow one-site difference, else
+    PAD_WIDTH), so the derivatives (18 values per site, the largest
     traffic of a two-pass form) stay in cache instead of travelling to main memory."""
     nx = buf.shape[1] - 2 * r
     slabs = rings.shape[0]
@@ -561,8 +720,12 @@ def _fused(buf, r, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, periodic, w
                 plane[:] = 0.0  # beyond a fixed border: no sites, no energy
             else:
                 i = ip % nx
-                pieces = _plane_derivatives(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, plane,
-                                            density, store_density and owned)
+                if narrow:
+                    pieces = _plane_derivatives_narrow(buf, r, i, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, plane,
+                                                       density, store_density and owned)
+                else:
+                    pieces = _plane_derivatives(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, plane,
+                                                density, store_density and owned)
                 if owned:
                     for q in range(6):
                         parts[i, q] = pieces[q]
@@ -570,10 +733,14 @@ def _fused(buf, r, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, periodic, w
                     _wrap_plane_frame(plane, r)
             g = ip - r
             if gradient and g >= i0 and lo <= g < nx - lo:
-                planes = (ring[(g - 4) % span], ring[(g - 3) % span], ring[(g - 2) % span], ring[(g - 1) % span],
-                          ring[g % span], ring[(g + 1) % span], ring[(g + 2) % span], ring[(g + 3) % span],
-                          ring[(g + 4) % span])
-                _plane_gradient(buf, r, g, taps, planes, lo, w, out)
+                if narrow:
+                    _plane_gradient_narrow(buf, r, g, ring[(g - 1) % span], ring[g % span], ring[(g + 1) % span],
+                                           lo, w, out)
+                else:
+                    planes = (ring[(g - 4) % span], ring[(g - 3) % span], ring[(g - 2) % span],
+                              ring[(g - 1) % span], ring[g % span], ring[(g + 1) % span], ring[(g + 2) % span],
+                              ring[(g + 3) % span], ring[(g + 4) % span])
+                    _plane_gradient(buf, r, g, taps, planes, lo, w, out)
 
 
 @nb.njit(parallel=True, cache=True)
@@ -646,17 +813,18 @@ def _run(field, spacing, periodic, taps, c2, c4, normalisation, out, gradient=Tr
             out[0], out[-1], out[:, 0], out[:, -1], out[:, :, 0], out[:, :, -1] = 0, 0, 0, 0, 0, 0
     parts = np.empty((nx, 6), dtype=np.float64)
     real = field.dtype.type
-    r = PAD_WIDTH
+    narrow = tuple(taps) == NARROW_TAPS
+    r = 1 if narrow else PAD_WIDTH
     per_axis = [_factors(n, h, real, None if metric is None else metric[a])
                 for a, (n, h) in enumerate(zip(field.shape[:3], (hx, hy, hz)))]
     (fx, bx, wx), (fy, by, wy), (fz, bz, wz) = per_axis
     density = _buffer("density", (nx, ny, nz), field.dtype)
     padded_shape = (nx + 2 * r, ny + 2 * r, nz + 2 * r)
-    buf = _buffer("field", (3,) + padded_shape, field.dtype)
+    buf = _buffer(("field", r), (3,) + padded_shape, field.dtype)
     slabs = max(1, min(nb.get_num_threads(), nx))
-    rings = _buffer(("rings", periodic), (slabs, 2 * r + 1, 18) + padded_shape[1:], field.dtype, zero=True)
+    rings = _buffer(("rings", periodic, r), (slabs, 2 * r + 1, 18) + padded_shape[1:], field.dtype, zero=True)
     _to_padded_planes(field, r, periodic, buf)
-    _fused(buf, r, tuple(float(t) for t in taps), fx, bx, fy, by, fz, bz, wx, wy, wz, float(c2), float(c4),
+    _fused(buf, r, narrow, tuple(float(t) for t in taps), fx, bx, fy, by, fz, bz, wx, wy, wz, float(c2), float(c4),
            periodic, real(scale), gradient, store_density, rings, parts, density,
            out.reshape(nx, ny, 3 * nz) if gradient else _NO_GRADIENT.astype(real))
     pieces = scale * parts.sum(axis=0)
