@@ -75,8 +75,8 @@ TREND_CHANGE = 0.05  # the virial must move this much towards balance to count a
 # energy outside the box half side that a "needed box side" aims at (a proxy of the box
 # error, which is of this order for a soliton squeezed by a fixed border)
 OUTSIDE_TARGET = 1e-4
-# a perturbed copy that relaxes lower than the state by more than this (relative) shows a
-# descent direction: the state is a saddle
+# a perturbed copy that relaxes lower than the state (relaxed alike) by more than this
+# (relative) shows a descent direction: the state is a saddle
 SADDLE_DROP = 1e-5
 
 
@@ -220,7 +220,8 @@ def assess(field, grid: Grid, energy_density, hopf_charge: float, expected_charg
     history: monitor series (size, thickness, boundary_fraction, hopf_charge, virial) if
     any; energy_history: per-step energies; negative_density: the bounded-below probe found
     a negative density; hessian: result of `solitons.stability.lowest_modes`;
-    saddle_check: the perturb-and-relax record of the driver (``energy``, ``perturbed_energy``)."""
+    saddle_check: the perturb-and-relax record of the driver (``reference_energy``,
+    ``perturbed_energy``)."""
     now = snapshot(field, grid, energy_density)
     h = max(grid.spacing)
     half_side = 0.5 * min(grid.side)
@@ -312,12 +313,13 @@ def assess(field, grid: Grid, energy_density, hopf_charge: float, expected_charg
         verdict = SADDLE
         warnings.append(f"the Hessian has {hessian['negative_modes']} clearly negative mode(s): "
                         "a saddle point, not a minimum")
-    elif saddle_check is not None and saddle_check["perturbed_energy"] < saddle_check["energy"] * (1 - SADDLE_DROP):
+    elif saddle_check is not None and (saddle_check["perturbed_energy"]
+                                       < saddle_check["reference_energy"] * (1 - SADDLE_DROP)):
         verdict = SADDLE
-        drop = 1.0 - saddle_check["perturbed_energy"] / saddle_check["energy"]
-        warnings.append(f"SADDLE: a perturbed copy (noise {saddle_check['noise']:g}) relaxed {100 * drop:.3f} % lower, "
-                        f"to E = {saddle_check['perturbed_energy']:.6f}: the symmetric state is not a minimum; "
-                        "rerun with initial.noise > 0")
+        drop = 1.0 - saddle_check["perturbed_energy"] / saddle_check["reference_energy"]
+        warnings.append(f"SADDLE: a perturbed copy (noise {saddle_check['noise']:g}) relaxed {100 * drop:.3f} % lower "
+                        f"than the state relaxed alike, to E = {saddle_check['perturbed_energy']:.6f}: the symmetric "
+                        "state is not a minimum; rerun with initial.noise > 0")
     else:
         verdict = STABLE
     if negative_density:

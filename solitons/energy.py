@@ -10,8 +10,9 @@ Every density is evaluated at each site from n there and one-sided differences D
 along each axis, averaged over the eight octants (built-in terms use exactly equal faster
 routes); the weights are positive, so a non-negative density gives a non-negative lattice
 energy.  ``second`` uses the one-site difference (second order in h), ``fourth`` the
-forward-biased five-point difference (fourth order); both are neighbour coupled.  The
-stencils and their properties are in `solitons.grid` (`STENCILS`).
+forward-biased five-point difference (fourth order), ``sixth`` the six-point one (sixth
+order); all are neighbour coupled.  The stencils and their properties are in
+`solitons.grid` (`STENCILS`).
 
 Virial
 ------

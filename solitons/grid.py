@@ -29,9 +29,14 @@ non-negative density is non-negative:
   difference: 1 - (kh)^2 / 12 + ..., and 0.41 at kh = pi).  So this scheme's error is
   positive where the field is nearly resolved: coarse cells cost energy, which keeps a
   soliton off the coarse cells of a stretched grid and makes shrinking through the
-  lattice costly.  The Laplacian (for second-derivative terms) is the central five-point
-  (-f(x-2h) + 16 f(x-h) - 30 f(x) + 16 f(x+h) - f(x+2h)) / (12 h^2), whose symbol
-  -(4 - 4 cos)(7 - cos) / 12 vanishes only at k = 0 (derived).
+  lattice costly.
+* ``sixth``: the six-point forward-biased difference over x - h .. x + 4h, fifth order for
+  f'(x); its odd error term cancels between D+ and D- in the octant average, so the energy
+  is sixth order.  |p|^2 / (kh)^2 >= 1 at every k (1.84 at kh = pi).
+
+The Laplacian (for second-derivative terms) is the central second difference of the
+scheme's order (three, five or seven points); each symbol is negative except at k = 0
+(derived: at kh = pi, -4, -64/12 and -1088/180), so it sees the checkerboard too.
 """
 
 from __future__ import annotations
@@ -59,7 +64,9 @@ class Stencil:
     difference is the mirror image, D- f(x) = -sum_o taps[o] f(x - o h) / h.
     ``at``: where D+ estimates the derivative, in sites from x (1/2 for the link midpoint,
     0 for the site); a stretched grid's 1 / (dx/dxi) is taken there (and at -at for D-).
-    ``laplacian``: second-difference coefficients over offsets -2..2, times 1 / h^2.
+    ``laplacian``: central second-difference coefficients over offsets -3..3, times 1 / h^2;
+    ``central``: central first-difference coefficients over offsets -3..3, times 1 / h (the
+    stretched-grid correction of the Laplacian), both of the scheme's order.
     """
 
     name: str
@@ -67,6 +74,7 @@ class Stencil:
     taps: tuple[float, ...]
     at: float
     laplacian: tuple[float, ...]
+    central: tuple[float, ...]
 
     @property
     def nonzero_taps(self) -> tuple[tuple[int, float], ...]:
@@ -74,11 +82,14 @@ class Stencil:
 
 
 STENCILS = {
-    "second": Stencil("second", 2, (0.0, -1.0, 1.0, 0.0, 0.0, 0.0), 0.5, (0.0, 1.0, -2.0, 1.0, 0.0)),
+    "second": Stencil("second", 2, (0.0, -1.0, 1.0, 0.0, 0.0, 0.0), 0.5,
+                      (0.0, 0.0, 1.0, -2.0, 1.0, 0.0, 0.0), (0.0, 0.0, -0.5, 0.0, 0.5, 0.0, 0.0)),
     "fourth": Stencil("fourth", 4, tuple(c / 12.0 for c in (-3.0, -10.0, 18.0, -6.0, 1.0, 0.0)), 0.0,
-                      tuple(c / 12.0 for c in (-1.0, 16.0, -30.0, 16.0, -1.0))),
+                      tuple(c / 12.0 for c in (0.0, -1.0, 16.0, -30.0, 16.0, -1.0, 0.0)),
+                      tuple(c / 12.0 for c in (0.0, 1.0, -8.0, 0.0, 8.0, -1.0, 0.0))),
     "sixth": Stencil("sixth", 6, tuple(c / 60.0 for c in (-12.0, -65.0, 120.0, -60.0, 20.0, -3.0)), 0.0,
-                     tuple(c / 12.0 for c in (-1.0, 16.0, -30.0, 16.0, -1.0))),
+                     tuple(c / 180.0 for c in (2.0, -27.0, 270.0, -490.0, 270.0, -27.0, 2.0)),
+                     tuple(c / 60.0 for c in (-1.0, 9.0, -45.0, 0.0, 45.0, -9.0, 1.0))),
 }
 
 
@@ -126,7 +137,7 @@ class Grid:
         origin = tuple(-0.5 * (n - 1) * h for n, h in zip(shape3, spacing3))
         return cls(shape3, spacing3, origin, boundary, stretch)
 
-    def coarsened(self) -> "Grid":
+    def coarsened(self) -> Grid:
         """The grid of about half the points per axis spanning the same box (spacing about
         2h): (N - 1) h = (M - 1) h' for fixed boxes, N h = M h' (N even) for periodic ones."""
         if self.boundary == "periodic":
@@ -145,7 +156,7 @@ class Grid:
     def stretched(self) -> bool:
         return any(self.stretch)
 
-    def computational(self) -> "Grid":
+    def computational(self) -> Grid:
         """The uniform grid of the computational coordinate xi (itself when not stretched):
         topological integrals, being coordinate invariant, are evaluated on it."""
         return Grid(self.shape, self.spacing, self.origin, self.boundary) if self.stretched else self
@@ -297,27 +308,23 @@ def grid_differences(padded, width, grid: Grid, spacing, stencil: Stencil):
 
 
 def grid_laplacian(padded, width, grid: Grid, spacing, stencil: Stencil):
-    """sum_i d_i d_i n with the stencil's second difference, (Nx, Ny, Nz, C).  On a
-    stretched grid d^2/dx^2 = (d^2/dxi^2 - (x''/x') d/dxi) / x'^2, with the central
+    """sum_i d_i d_i n with the stencil's central second difference, (Nx, Ny, Nz, C).  On a
+    stretched grid d^2/dx^2 = (d^2/dxi^2 - (x''/x') d/dxi) / x'^2, with the central first
     difference of the same order for d/dxi."""
     shape = grid.shape
-    centre = shifted(padded, width, shape, 0, 0)
+    dtype = padded.dtype
+    def central(coefficients, axis):
+        return sum(c * shifted(padded, width, shape, axis, o) for o, c in zip(range(-3, 4), coefficients) if c != 0.0)
+
     total = 0.0
     for axis in range(3):
-        second = sum(c * shifted(padded, width, shape, axis, o)
-                     for o, c in zip(range(-2, 3), stencil.laplacian) if c != 0.0) / spacing[axis] ** 2
-        if grid.stretched and grid.stretch[axis]:
+        second = central(stencil.laplacian, axis) / spacing[axis] ** 2
+        if grid.stretch[axis]:
             xi = grid.xi_axes()[axis]
-            slope = grid.jacobian_slope(xi, axis) / grid.jacobian(xi, axis)
-            up, down = shifted(padded, width, shape, axis, 1), shifted(padded, width, shape, axis, -1)
-            if stencil.order == 4:
-                up2, down2 = shifted(padded, width, shape, axis, 2), shifted(padded, width, shape, axis, -2)
-                first = (8.0 * (up - down) - (up2 - down2)) / (12.0 * spacing[axis])
-            else:
-                first = (up - down) / (2.0 * spacing[axis])
-            inverse_sq = _axis_view(1.0 / grid.jacobian(xi, axis) ** 2, axis, shape)
-            second = (second - first * jnp.asarray(_axis_view(slope, axis, shape), dtype=centre.dtype)) * \
-                jnp.asarray(inverse_sq, dtype=centre.dtype)
+            jacobian = grid.jacobian(xi, axis)
+            first = central(stencil.central, axis) / spacing[axis]
+            slope = jnp.asarray(_axis_view(grid.jacobian_slope(xi, axis) / jacobian, axis, shape), dtype=dtype)
+            second = (second - first * slope) * jnp.asarray(_axis_view(1.0 / jacobian**2, axis, shape), dtype=dtype)
         total = total + second
     return total
 
