@@ -32,7 +32,7 @@ from solitons.driver import RESULT, SUMMARY, RunError, config_hash, relax
 from solitons.engine import make_task, model_text, run_tasks
 from solitons.io import read_result
 
-SCAN_KEYS = ("parameter", "values", "start", "stop", "num", "continuation")
+SCAN_KEYS = ("parameter", "values", "start", "stop", "num", "continuation", "continuum")
 
 
 def read_scan_table(path: str | Path) -> dict:
@@ -67,7 +67,16 @@ def read_scan_table(path: str | Path) -> dict:
     continuation = table.get("continuation", False)
     if not isinstance(continuation, bool):
         raise ConfigError(source, "scan.continuation", continuation, "must be true or false")
-    return {"keys": keys, "values": [tuple(p) for p in values], "continuation": continuation}
+    continuum = None
+    if "continuum" in table:
+        from solitons.continuum import validate_spacings
+
+        continuum = validate_spacings(source, "scan.continuum", table["continuum"])
+        if continuation:
+            raise ConfigError(source, "scan.continuum", table["continuum"],
+                              "continuum values per point run as independent tasks: drop continuation = true")
+    return {"keys": keys, "values": [tuple(p) for p in values], "continuation": continuation,
+            "continuum": continuum}
 
 
 def _override(key, value):
@@ -146,7 +155,7 @@ def run_scan(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr, fi
             bar.set_postfix_str(summaries[index]["verdict"])
         bar.close()
     else:
-        tasks = [make_task(out, name, spec.text, base_dir) for name, (_, spec), summary
+        tasks = [make_task(out, name, spec.text, base_dir, continuum=table["continuum"]) for name, (_, spec), summary
                  in zip(names, specs, summaries) if summary is None]
         failed = [row for row in run_tasks(tasks, scheduler=scheduler, workers=workers, stream=stream,
                                            describe=lambda row: row.get("verdict") or row["status"])
@@ -159,6 +168,10 @@ def run_scan(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr, fi
         row = {"index": index}
         row.update({k: v for k, v in zip(table["keys"], point)})
         row.update({"energy": summary["energy"]})
+        if "continuum" in summary:  # the limit h -> 0 of this point, with its error bar
+            limits = summary["continuum"]
+            row.update({"E_inf": limits["energy_limit"], "E_inf_error": limits["energy_error"],
+                        "virial_inf": limits["virial_limit"], "verdicts": ";".join(limits["verdicts"])})
         row.update({f"E[{k}]": v for k, v in summary["terms"].items()})
         e = summary["evidence"]
         row.update({"hopf_charge": summary["hopf_charge"], "virial": summary["virial"],

@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import csv
 import json
+import shutil
 import sys
 import time
 import tomllib
@@ -33,13 +34,23 @@ from typing import TextIO
 import numpy as np
 
 from solitons.config import ConfigError, RunSpec, load
-from solitons.driver import SUMMARY, config_hash, make_grid, relax
+from solitons.driver import RESULT, SUMMARY, config_hash, make_grid, relax
 from solitons.extrapolation import fit_power_limit
 from solitons.grid import STENCILS
 from solitons.initial import interpolate_field
 from solitons.io import atomic_write_text, read_result, write_json
 
 TABLE = "continuum"
+
+
+def validate_spacings(source: str, key: str, spacings) -> list[float]:
+    """Three or more distinct positive spacings, coarsest first; ConfigError otherwise."""
+    if (not isinstance(spacings, list) or len(spacings) < 3
+            or not all(isinstance(h, (int, float)) and not isinstance(h, bool) and np.isfinite(h) and h > 0
+                       for h in spacings)
+            or len(set(spacings)) != len(spacings)):
+        raise ConfigError(source, key, spacings, "must list three or more distinct positive spacings")
+    return sorted((float(h) for h in spacings), reverse=True)
 
 
 def read_continuum_table(path: str | Path) -> dict:
@@ -57,26 +68,23 @@ def read_continuum_table(path: str | Path) -> dict:
     unknown = sorted(set(table) - {"spacings"})
     if unknown:
         raise ConfigError(source, f"{TABLE}.{unknown[0]}", table[unknown[0]], "unknown key (allowed: spacings)")
-    spacings = table.get("spacings")
-    if (not isinstance(spacings, list) or len(spacings) < 3
-            or not all(isinstance(h, (int, float)) and not isinstance(h, bool) and np.isfinite(h) and h > 0
-                       for h in spacings)
-            or len(set(spacings)) != len(spacings)):
-        raise ConfigError(source, f"{TABLE}.spacings", spacings, "must list three or more distinct positive spacings")
-    return {"spacings": sorted((float(h) for h in spacings), reverse=True)}
+    return {"spacings": validate_spacings(source, f"{TABLE}.spacings", table.get("spacings"))}
 
 
-def level_specs(path, overrides=()) -> tuple[RunSpec, list[RunSpec]]:
-    """The base run and one run per spacing, all validated before any work."""
-    table = read_continuum_table(path)
-    base = load(path, list(overrides), ignore_tables=(TABLE,))
+def level_specs(path, overrides=(), text: str | None = None, base_dir=None,
+                spacings: list[float] | None = None) -> tuple[RunSpec, list[RunSpec]]:
+    """The base run and one run per spacing, all validated before any work.  ``text`` and
+    ``spacings`` (a campaign point) replace the file and its [continuum] table."""
+    if spacings is None:
+        spacings = read_continuum_table(path)["spacings"]
+    base = load(path, list(overrides), text=text, base_dir=base_dir, ignore_tables=(TABLE,))
     extent = [(n - 1) * h for n, h in zip(base.grid.points, base.grid.spacing)]
     specs = []
-    for h in table["spacings"]:
+    for h in spacings:
         points = [max(2, round(e / h)) + 1 for e in extent]
         spacing = [e / (n - 1) for e, n in zip(extent, points)]
         level = list(overrides) + [f"grid.points={json.dumps(points)}", f"grid.spacing={json.dumps(spacing)}"]
-        specs.append(load(path, level, ignore_tables=(TABLE,)))
+        specs.append(load(path, level, text=text, base_dir=base_dir, ignore_tables=(TABLE,)))
     return base, specs
 
 
@@ -88,10 +96,16 @@ def _finished(out: Path, spec: RunSpec) -> dict | None:
     return summary if summary.get("config_hash") == config_hash(spec.text) else None
 
 
-def run_continuum(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr) -> dict:
-    """Relax every level, fit the limits, write the outputs; returns the report."""
+def run_continuum(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr, text: str | None = None,
+                  base_dir=None, spacings: list[float] | None = None, publish: bool = False) -> dict:
+    """Relax every level, fit the limits, write the outputs; returns the report.
+
+    ``publish`` (a scan or survey point): also place the finest level's result.h5 and
+    summary.json in ``out_dir``, the summary extended by ``continuum`` (the limits, their
+    error bars, the verdict of every level and the warnings), so that the campaign reads
+    the point like a single run."""
     out = Path(out_dir)
-    base, specs = level_specs(path, overrides)
+    base, specs = level_specs(path, overrides, text=text, base_dir=base_dir, spacings=spacings)
     order = STENCILS[base.grid.scheme].order
     out.mkdir(parents=True, exist_ok=True)
     start = time.perf_counter()
@@ -118,7 +132,25 @@ def run_continuum(path, out_dir, overrides=(), stream: TextIO | None = sys.stder
     report = summarise(rows, order, base)
     report["wall_seconds"] = time.perf_counter() - start
     write_outputs(report, out)
+    if publish:
+        publish_finest(report, out)
     return report
+
+
+def publish_finest(report: dict, out: Path) -> None:
+    finest = Path(report["levels"][-1]["path"])
+    summary = json.loads((finest / SUMMARY).read_text())
+    summary["continuum"] = {"order": report["order"], "warnings": report["warnings"],
+                            "verdicts": [r["verdict"] for r in report["levels"]],
+                            "spacings": [r["spacing"] for r in report["levels"]],
+                            **{f"{name}_limit": fit["limit"] for name, fit in report["fits"].items()},
+                            **{f"{name}_error": fit["error"] for name, fit in report["fits"].items()}}
+    summary["warnings"] = list(summary["warnings"]) + report["warnings"]
+    summary["config_hash"] = config_hash(report["config"])  # the point's, so that a rerun skips it
+    tmp = out / f".{RESULT}.tmp"
+    shutil.copyfile(finest / RESULT, tmp)
+    tmp.replace(out / RESULT)
+    write_json(out / SUMMARY, summary)
 
 
 def summarise(rows: list[dict], order: int, base: RunSpec | None = None) -> dict:

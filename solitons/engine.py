@@ -16,6 +16,7 @@ for scans with continuation, where each point starts from the previous one).
 
 from __future__ import annotations
 
+import json
 import os
 import socket
 import sys
@@ -40,15 +41,19 @@ def model_text(spec) -> str:
     return " + ".join(f"{t.coupling:g}*{t.kind if t.kind != 'user' else t.name}" for t in spec.terms)
 
 
-def make_task(root: str | Path, name: str, text: str, base_dir: str | Path, **labels) -> dict:
-    return {"root": str(root), "task": name, "text": text, "base_dir": str(base_dir), "labels": labels}
+def make_task(root: str | Path, name: str, text: str, base_dir: str | Path, continuum: list[float] | None = None,
+              **labels) -> dict:
+    """A task: relax ``text`` into root/name, or, with ``continuum`` (spacings), run the
+    continuum command on it there (`solitons.continuum.run_continuum` with publish)."""
+    return {"root": str(root), "task": name, "text": text, "base_dir": str(base_dir), "labels": labels,
+            "continuum": continuum}
 
 
 def execute(task: dict) -> dict:
     """Relax one task (in a worker) and record it in the catalogue; never raises for a
     failed run: the returned row then has status 'failed' and the error."""
     from solitons.config import load
-    from solitons.driver import CHECKPOINT, RunError, config_hash, relax
+    from solitons.driver import CHECKPOINT, SUMMARY, RunError, config_hash, relax
 
     root = Path(task["root"])
     out = root / task["task"]
@@ -62,7 +67,13 @@ def execute(task: dict) -> dict:
         row["family"] = spec.initial.description
         row["expected_charge"] = spec.initial.expected_charge
         summary = None
-        if (out / CHECKPOINT).exists():  # an interrupted campaign: continue this run
+        if task.get("continuum"):
+            from solitons.continuum import run_continuum
+
+            run_continuum(None, out, text=task["text"], base_dir=task["base_dir"], spacings=task["continuum"],
+                          stream=None, publish=True)
+            summary = json.loads((out / SUMMARY).read_text())
+        elif (out / CHECKPOINT).exists():  # an interrupted campaign: continue this run
             try:
                 summary = relax(spec, out, resume=True, stream=None)
                 row["resumed"] = True

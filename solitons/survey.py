@@ -37,7 +37,7 @@ from solitons.driver import RESULT, SUMMARY, config_hash
 from solitons.engine import make_task, run_tasks
 from solitons.initial import describe
 
-SURVEY_KEYS = ("charges", "seeds", "families")
+SURVEY_KEYS = ("charges", "seeds", "families", "continuum")
 
 # Ward's conjectured bound E >= Q^(3/4) (Ward, Nonlinearity 12 (1999) 241, memory) and the
 # Vakulenko-Kapitanski type bound E >= (3/16)^(3/8) Q^(3/4) (Kundu-Rybakov constant,
@@ -111,7 +111,12 @@ def read_survey(path: str | Path, overrides=()) -> tuple[dict, list]:
         raise ConfigError(source, "survey.families", "(list)",
                           f"no family gives the charges {missing}; add families for them")
     tasks.sort(key=lambda item: (item[0], describe(item[1]), item[2]))
-    return {"charges": charges, "seeds": seeds, "spec": base}, tasks
+    continuum = None
+    if "continuum" in table:
+        from solitons.continuum import validate_spacings
+
+        continuum = validate_spacings(source, "survey.continuum", table["continuum"])
+    return {"charges": charges, "seeds": seeds, "spec": base, "continuum": continuum}, tasks
 
 
 def _slug(text: str) -> str:
@@ -137,7 +142,8 @@ def run_survey(path, out_dir, overrides=(), scheduler: str | None = None, worker
         if (previous and previous["config_hash"] == config_hash(spec.text)
                 and (out / name / RESULT).exists() and (out / name / SUMMARY).exists()):
             continue  # finished before with the same configuration
-        tasks.append(make_task(out, name, spec.text, base_dir, family=describe(part), expected_charge=q))
+        tasks.append(make_task(out, name, spec.text, base_dir, continuum=table["continuum"], family=describe(part),
+                               expected_charge=q))
     if stream is not None:
         g = table["spec"].grid
         print(f"survey: {len(entries)} runs for Q = {table['charges']} ({len(entries) - len(tasks)} finished "
@@ -161,6 +167,9 @@ def run_survey(path, out_dir, overrides=(), scheduler: str | None = None, worker
                          measured_Q=summary["hopf_charge"], verdict=summary["verdict"],
                          converged=summary["converged"], iterations=summary["iterations"],
                          wall_seconds=summary["wall_seconds"], warnings=" | ".join(summary["warnings"]))
+            if "continuum" in summary:  # the limit h -> 0 of this run, with its error bar
+                entry.update(E_inf=summary["continuum"]["energy_limit"],
+                             E_inf_error=summary["continuum"]["energy_error"])
         rows.append(entry)
     mark_lowest(rows)
     write_table_files(rows, out, table["spec"])

@@ -99,3 +99,38 @@ def test_continuum_command_end_to_end(tmp_path):
     for name in ("continuum.csv", "continuum.md", "continuum.png"):
         assert (out / name).stat().st_size > 0
     assert "| energy |" in proc.stdout
+
+
+def test_scan_points_carry_their_continuum_limits(tmp_path):
+    """A scan with `continuum = [...]` relaxes every point at each spacing and reports E_inf
+    with its error bar per point; the limit lies below every level's energy (the
+    sixth-order scheme errs upwards, README), and a rerun skips the finished points.  The
+    mass term raises the energy (a non-negative density added, derived)."""
+    from solitons.campaigns import run_scan
+
+    config = tmp_path / "scan.toml"
+    config.write_text("[grid]\npoints = 25\nspacing = 0.4\nstretch = 2.0\n"
+                      "[terms.dirichlet]\ncoupling = 1.0\n[terms.skyrme_faddeev]\ncoupling = 1.0\n"
+                      "[terms.mass]\nkind = \"potential\"\ncoupling = 0.0\n"
+                      "[relax]\ncheckpoint_every = 0\nsaddle_check = false\n"
+                      "[scan]\nparameter = \"terms.mass.coupling\"\nvalues = [0.0, 0.5]\n"
+                      "continuum = [0.4, 0.3, 0.25]\n")
+    rows = run_scan(config, tmp_path / "out", stream=None, figures=False, scheduler="inline")
+    for row in rows:
+        levels = json.loads((Path(row["path"]) / "continuum.json").read_text())["levels"]
+        assert row["E_inf"] < min(level["energy"] for level in levels)
+        assert row["E_inf_error"] > 0
+        assert len(row["verdicts"].split(";")) == 3
+    assert rows[1]["E_inf"] > rows[0]["E_inf"]
+    again = run_scan(config, tmp_path / "out", stream=None, figures=False, scheduler="inline")
+    assert all(r["skipped"] for r in again)
+
+
+def test_continuum_with_continuation_is_refused(tmp_path):
+    config = tmp_path / "scan.toml"
+    config.write_text("[scan]\nparameter = \"terms.dirichlet.coupling\"\nvalues = [1.0]\ncontinuation = true\n"
+                      "continuum = [0.3, 0.2, 0.1]\n")
+    from solitons.campaigns import read_scan_table
+
+    with pytest.raises(ConfigError, match="scan.continuum"):
+        read_scan_table(config)
