@@ -27,13 +27,12 @@ import json
 import shutil
 import sys
 import time
-import tomllib
 from pathlib import Path
 from typing import TextIO
 
 import numpy as np
 
-from solitons.config import ConfigError, RunSpec, load
+from solitons.config import ConfigError, RunSpec, load, read_campaign_table
 from solitons.driver import RESULT, SUMMARY, config_hash, make_grid, relax
 from solitons.extrapolation import fit_power_limit
 from solitons.grid import STENCILS
@@ -55,20 +54,8 @@ def validate_spacings(source: str, key: str, spacings) -> list[float]:
 
 def read_continuum_table(path: str | Path) -> dict:
     """The ``[continuum]`` table: ``spacings``, three or more distinct positive numbers."""
-    source = str(path)
-    try:
-        data = tomllib.loads(Path(path).read_text())
-    except OSError as error:
-        raise ConfigError(source, "(file)", str(path), f"cannot be read: {error.strerror}") from None
-    except tomllib.TOMLDecodeError as error:
-        raise ConfigError(source, "(syntax)", "", f"not valid TOML: {error}") from None
-    table = data.get(TABLE)
-    if not isinstance(table, dict):
-        raise ConfigError(source, TABLE, table, "a [continuum] table with spacings = [...] is needed")
-    unknown = sorted(set(table) - {"spacings"})
-    if unknown:
-        raise ConfigError(source, f"{TABLE}.{unknown[0]}", table[unknown[0]], "unknown key (allowed: spacings)")
-    return {"spacings": validate_spacings(source, f"{TABLE}.spacings", table.get("spacings"))}
+    table = read_campaign_table(path, TABLE, ("spacings",), "a continuum run")
+    return {"spacings": validate_spacings(str(path), f"{TABLE}.spacings", table.get("spacings"))}
 
 
 def level_specs(path, overrides=(), text: str | None = None, base_dir=None,
