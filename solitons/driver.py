@@ -235,10 +235,14 @@ class Progress:
 
 
 def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: bool = False,
-          stream: TextIO | None = sys.stderr, initial_field: np.ndarray | None = None) -> dict:
+          stream: TextIO | None = sys.stderr, initial_field: np.ndarray | None = None,
+          symmetric_start: bool | None = None) -> dict:
     """Relax the configuration of ``spec`` and write DIR/result.h5 and DIR/summary.json.
     Returns the summary dictionary.  ``stream`` receives progress (None: quiet);
-    ``initial_field`` replaces the configured initial data (continuation in scans)."""
+    ``initial_field`` replaces the configured initial data (continuation in scans).
+    ``symmetric_start``: whether the start can be symmetric, so that a would-be stable
+    state needs the saddle check (default: noise-free configured initial data; a caller
+    that hands over a field derived from such data, as the continuum levels do, says so)."""
     out = Path(out_dir)
     grid = make_grid(spec)
     model = make_model(spec, grid)
@@ -322,8 +326,9 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
 
     verdict = verdict_with()
     # only a state that would be called stable needs the evidence that it is no saddle
-    if (verdict["verdict"] == "stable" and spec.relax.saddle_check and spec.initial.noise == 0.0
-            and initial_field is None):
+    if symmetric_start is None:
+        symmetric_start = spec.initial.noise == 0.0 and initial_field is None
+    if verdict["verdict"] == "stable" and spec.relax.saddle_check and symmetric_start:
         verdict = verdict_with(saddle_check(model, field, result.energy, rule, spec, stream))
     if abs(initial_charge - expected) > CHARGE_CHECK * expected:
         verdict["warnings"].append(
