@@ -137,3 +137,20 @@ def test_continuum_with_continuation_is_refused(tmp_path):
 
     with pytest.raises(ConfigError, match="scan.continuum"):
         read_scan_table(config)
+
+
+def test_survey_runs_carry_their_continuum_limits(tmp_path):
+    """A survey with `continuum = [...]` runs every task as a continuum command: the table
+    gains E_inf below every level's energy (the sixth-order scheme errs upwards, README)."""
+    from solitons.survey import run_survey
+
+    config = tmp_path / "survey.toml"
+    config.write_text("[grid]\npoints = 25\nspacing = 0.4\nstretch = 2.0\n"
+                      "[relax]\ncheckpoint_every = 0\nsaddle_check = false\n"
+                      "[survey]\ncharges = [1]\nfamilies = [{ family = \"axial\", a = 1, b = 1, size = 1.0 }]\n"
+                      "continuum = [0.4, 0.3, 0.25]\n")
+    rows = run_survey(config, tmp_path / "out", scheduler="inline", stream=None, figure=False)
+    assert len(rows) == 1 and rows[0]["status"] == "finished"
+    levels = json.loads((tmp_path / "out" / rows[0]["task"] / "continuum.json").read_text())["levels"]
+    assert rows[0]["E_inf"] < min(level["energy"] for level in levels)
+    assert rows[0]["E_inf_error"] > 0
