@@ -277,15 +277,17 @@ def plot_continuum(report: dict, path) -> Path:
     (report of `solitons.continuum.summarise`)."""
     order, rows, fits = report["order"], report["levels"], report["fits"]
     x = np.array([r["spacing"] for r in rows]) ** order
-    line = np.linspace(0.0, 1.05 * x.max(), 50)
+    h_line = np.linspace(0.0, 1.01 * max(r["spacing"] for r in rows), 80)
     fig, axes = plt.subplots(1, 2, figsize=(12, 4.5), dpi=DPI, constrained_layout=True)
     for ax, key, label in ((axes[0], "energy", "E"), (axes[1], "virial", "virial")):
         fit = fits[key]
         ax.plot(x, [r[key] for r in rows], "o", ms=6, label="lattice")
-        ax.plot(line, fit["limit"] + fit["slope"] * line, "-", lw=1, label=f"{label}(h) = {label}$_\\infty$ + c h$^{order}$")
+        curve = fit["limit"] + fit["slope"] * h_line**order + fit.get("correction", 0.0) * h_line ** (order + 2)
+        terms = f" + c h$^{{{order}}}$" + (f" + d h$^{{{order + 2}}}$" if fit.get("correction") else "")
+        ax.plot(h_line**order, curve, "-", lw=1, label=f"fit {label}$_\\infty${terms}")
         ax.errorbar([0.0], [fit["limit"]], yerr=[fit["error"]], fmt="s", color="tab:red", capsize=4,
                     label=f"{label}$_\\infty$ = {fit['limit']:.6f} $\\pm$ {fit['error']:.1e}")
-        ax.set_xlabel(f"h$^{order}$ (model length units$^{order}$)")
+        ax.set_xlabel(f"h$^{{{order}}}$ (model length units$^{{{order}}}$)")
         ax.set_ylabel(f"{label} (Battye-Sutcliffe units)" if key == "energy" else label)
         ax.ticklabel_format(axis="y", useOffset=False)
         ax.grid(alpha=0.3)
