@@ -104,6 +104,7 @@ def test_continuum_command_end_to_end(tmp_path):
     assert "| energy |" in proc.stdout
 
 
+@pytest.mark.slow  # 55 s; the survey test below covers the same task path in the default suite
 def test_scan_points_carry_their_continuum_limits(tmp_path):
     """A scan with `continuum = [...]` relaxes every point at each spacing and reports E_inf
     with its error bar per point; the limit lies below every level's energy (the
