@@ -14,11 +14,11 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from solitons.energy import BACKENDS, MIN_POINTS, SCHEMES, kernel_couplings
+from solitons.energy import BACKENDS, MIN_POINTS, SCHEMES
 from solitons.grid import BOUNDARIES
 from solitons.initial import FAMILIES, describe, expected_charge
 from solitons.minimise import METHODS, PRECONDITIONERS
-from solitons.terms import BUILTIN_TERMS, Term
+from solitons.terms import BUILTIN_TERMS
 
 DEFAULTS: dict[str, Any] = {
     "grid": {"points": 64, "spacing": 0.125, "boundary": "fixed", "scheme": "sixth", "stretch": 0.0},
@@ -463,11 +463,6 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
     if grid.boundary == "periodic" and relax.preconditioner == "laplacian" and relax.preconditioner_shift == 0.0:
         c.fail("relax.preconditioner_shift", 0.0, "a periodic box needs a positive shift (the constant mode "
                "of the Laplacian is zero)")
-    if relax.backend == "numba" and (
-            any(t.kind not in BUILTIN_TERMS for t in terms)
-            or kernel_couplings(tuple(Term(t.name, BUILTIN_TERMS[t.kind], t.coupling) for t in terms)) is None):
-        c.fail("relax.backend", "numba", "the numba kernel covers only the dirichlet and skyrme_faddeev "
-               "terms; use 'auto' (kernel where it applies, jax otherwise) or 'jax'")
     if any(grid.stretch) and relax.hessian_modes:
         c.fail("relax.hessian_modes", relax.hessian_modes, "the Hessian study needs a uniform grid "
                "(grid.stretch = 0); on a stretched grid its eigenproblem would need the site volumes as a metric")

@@ -371,7 +371,7 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
                  "origin": list(grid.origin), "boundary": grid.boundary, "stretch": list(grid.stretch),
                  "scheme": spec.grid.scheme, "box_side": list(grid.side)},
         "method": relax_spec.method,
-        "backend": "numba kernel" if model.uses_kernel else "jax",
+        "backend": model.route.name,
         "coarse_stage": coarse,
         "bounded_below_probe": probe,
         "verdict": verdict["verdict"],

@@ -25,6 +25,7 @@ continuum energy, negative for a soliton squeezed by its box (E4 > E2).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from dataclasses import field as dc_field
 from functools import lru_cache, partial
 from typing import NamedTuple
 
@@ -141,32 +142,38 @@ class Model:
     """A sum of terms on a grid with a lattice scheme.  Hashable: jitted methods take it
     as static data.
 
-    ``backend`` chooses the route of value_and_grad, the hot path of a relaxation:
-    "numba" the fused kernel of solitons.kernels (only for c2 * dirichlet +
-    c4 * skyrme_faddeev), "jax" autodiff of the term densities, "auto" the kernel where it
-    applies and jax otherwise.  Energies, densities and the virial always use jax."""
+    ``backend`` chooses the evaluation route (`solitons.routes`), picked once here and
+    asked by every method: "auto" (or "numba") the numba kernels, the fused plain kernel
+    for c2 * dirichlet + c4 * skyrme_faddeev and the staged kernel for any other model
+    (user terms differentiated pointwise by jax inside it); "jax" autodiff of the whole
+    lattice energy (the reference).  `energy` is always the jax expression (traceable, for
+    the Hessian); it equals the sum of `energies`."""
 
     terms: tuple[Term, ...]
     grid: Grid
     scheme: str = "second"
     backend: str = "auto"
+    route: object = dc_field(init=False, repr=False, compare=False, hash=False)
 
     def __post_init__(self) -> None:
+        from solitons.routes import choose_route
+
         if self.scheme not in SCHEMES:
             raise ValueError(f"unknown scheme {self.scheme!r}; choose from {sorted(SCHEMES)}")
         if self.backend not in BACKENDS:
             raise ValueError(f"unknown backend {self.backend!r}; choose from {BACKENDS}")
-        if self.backend == "numba" and kernel_couplings(self.terms) is None:
-            raise ValueError("the numba backend covers only the built-in dirichlet and skyrme_faddeev "
-                             "terms; use backend 'jax' or 'auto' for this model")
         if min(self.grid.shape) < MIN_POINTS:
             raise ValueError(
                 f"grid {self.grid.shape} is smaller than the {self.scheme}-order stencil needs"
             )
+        object.__setattr__(self, "route", choose_route(self))
 
     @property
     def uses_kernel(self) -> bool:
-        return self.backend != "jax" and kernel_couplings(self.terms) is not None
+        """Whether a numba route evaluates the model (False only for backend "jax")."""
+        from solitons.routes import Autodiff
+
+        return not isinstance(self.route, Autodiff)
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -174,13 +181,6 @@ class Model:
 
     def spacing_array(self, dtype=jnp.float64):
         return jnp.asarray(self.grid.spacing, dtype=dtype)
-
-    def _kernel_pieces(self, field):
-        from solitons import kernels
-
-        c2, c4 = kernel_couplings(self.terms)
-        return kernels.energy_pieces(np.asarray(field), self.grid.spacing, self.grid.boundary == "periodic",
-                                     self.stencil.taps, c2, c4, NORMALISATION, self.metric)
 
     @property
     def metric(self):
@@ -191,31 +191,18 @@ class Model:
         return STENCILS[self.scheme]
 
     def energies(self, field) -> dict[str, float]:
-        if self.uses_kernel:
-            pieces, _ = self._kernel_pieces(field)
-            c2, c4 = kernel_couplings(self.terms)
-            totals = {"dirichlet": (float(pieces[:3].sum()), c2), "skyrme_faddeev": (float(pieces[3:].sum()), c4)}
-            return {t.name: (totals[t.kind.name][0] * t.coupling / totals[t.kind.name][1]
-                             if totals[t.kind.name][1] != 0 else 0.0) for t in self.terms}
-        values = _energies_jit(self, field, self.spacing_array())
-        return {name: float(v) for name, v in zip(self.names, values)}
+        """Energy of each term, by name."""
+        return self.route.measure(np.asarray(field), density=False).energies
 
     def energy_density(self, field):
         """Total normalised energy density per site, (Nx, Ny, Nz)."""
-        if self.uses_kernel:
-            return self._kernel_pieces(field)[1]
-        return np.asarray(_density_jit(self, field, self.spacing_array()))
+        return self.route.measure(np.asarray(field)).density
 
     def density_and_virial(self, field) -> tuple[np.ndarray, dict]:
-        """`energy_density` and `virial` together: one kernel pass on the kernel route (the
-        per-step monitor of a relaxation asks for both)."""
-        if self.uses_kernel:
-            from solitons import kernels
-
-            pieces, density = self._kernel_pieces(field)
-            total, per_axis = kernels.virial(pieces)
-            return density, {"total": total, "per_axis": per_axis}
-        return self.energy_density(field), self.virial(field)
+        """`energy_density` and `virial` from one pass (the per-step monitor of a
+        relaxation asks for both)."""
+        measures = self.route.measure(np.asarray(field))
+        return measures.density, measures.virial
 
     def energy(self, field):
         return _total_jit(self, field, self.spacing_array())
@@ -228,33 +215,13 @@ class Model:
 
     def evaluate(self, field: np.ndarray, out: np.ndarray | None = None) -> tuple[float, np.ndarray]:
         """value_and_grad outside jax tracing, for loops written in numpy: (energy, gradient
-        as a numpy array, written into ``out`` if given).  The kernel route calls numba
+        as a numpy array, written into ``out`` if given).  The numba routes are called
         directly (no host callback)."""
-        if self.uses_kernel:
-            from solitons import kernels
-
-            c2, c4 = kernel_couplings(self.terms)
-            return kernels.value_and_grad(np.asarray(field), self.grid.spacing, self.grid.boundary == "periodic",
-                                          self.stencil.taps, c2, c4, NORMALISATION, out, self.metric)
-        value, grad = self.value_and_grad(field)
-        if out is None:
-            return float(value), np.asarray(grad)
-        out[...] = np.asarray(grad)
-        return float(value), out
+        return self.route.evaluate(field, out)
 
     def virial(self, field) -> dict:
         """Derrick balance: h_a dE/dh_a / E per axis and in total (see module docstring)."""
-        if self.uses_kernel:
-            from solitons import kernels
-
-            total, per_axis = kernels.virial(self._kernel_pieces(field)[0])
-            return {"total": total, "per_axis": per_axis}
-        spacing = self.spacing_array()
-        total, dspacing = _energy_spacing_grad_jit(self, field, spacing)
-        if float(total) == 0.0:  # the vacuum: no scale to balance
-            return {"total": 0.0, "per_axis": [0.0, 0.0, 0.0]}
-        per_axis = np.asarray(spacing * dspacing) / float(total)
-        return {"total": float(per_axis.sum()), "per_axis": [float(v) for v in per_axis]}
+        return self.route.measure(np.asarray(field), density=False).virial
 
     def force_scale(self) -> float:
         """Divide a gradient by this to get the Euler-Lagrange expression of the
@@ -291,16 +258,10 @@ def _total_jit(model, field, spacing):
 
 
 def _kernel_value_and_grad(model: Model, field):
-    """The fused kernel through a host callback, so jitted minimiser steps can call it."""
-    from solitons import kernels
-
-    c2, c4 = kernel_couplings(model.terms)
-    periodic = model.grid.boundary == "periodic"
-    taps = model.stencil.taps
+    """A numba route through a host callback, so jitted minimiser steps can call it."""
 
     def host(values):
-        energy, grad = kernels.value_and_grad(np.asarray(values), model.grid.spacing, periodic, taps,
-                                              c2, c4, NORMALISATION, metric=model.metric)
+        energy, grad = model.route.evaluate(np.asarray(values))
         return np.asarray(energy, dtype=np.float64), grad
 
     shapes = (jax.ShapeDtypeStruct((), jnp.float64), jax.ShapeDtypeStruct(field.shape, field.dtype))

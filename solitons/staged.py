@@ -1,0 +1,913 @@
+"""The staged numba route: energy, gradient, per-term energies, density and virial of any
+model built from the built-in terms, on every scheme, grid kind, boundary and precision.
+
+`solitons.kernels` fuses the two terms of the plain model into one loop.  A correction
+term would have to be fused into that loop as well, once per combination; instead each
+row of sites (fixed x-plane i and row j, all k) goes through three stages:
+
+1. ``_stage_row`` writes the row's local fields into a small scratch array (rows of
+   length Nz, in L1 cache): the six one-sided differences (18 rows, the layout of the
+   derivative planes of `solitons.kernels`), n (3 rows) and, when a term asks for it, the
+   Laplacian (3 rows) and its per-axis scaling parts (9 rows, for the virial).
+2. The plain model's site algebra (`solitons.kernels._site`) and then one row function
+   per active correction term add the derivatives of w * coupling * density with respect
+   to every local field into the row's derivative plane (rows 0-17 differences, 18-20 n,
+   21-23 Laplacian), the density into the density row, and return the term's energy and
+   its per-axis virial piece ``Q_a = sum_sites w dens/d(local) . (scaling of local under
+   h_a)``, so that h_a dE/dh_a = E - Q_a (derived: each difference along a carries 1/h_a,
+   the Laplacian's axis-a part 1/h_a^2 (1/h_a for the stretched correction), the cell
+   volume h_x h_y h_z).  A term's row function is independent of the others: adding a
+   built-in term to this route is one row function, one slot in `EXTRA_KINDS`, one test.
+3. The difference rows are multiplied by their difference factors and gathered into
+   dE/dn by `solitons.kernels._plane_gradient` (or its narrow form); the n and Laplacian
+   rows by ``_plane_gradient_extra`` (the Laplacian with the transposed central stencil).
+
+Terms the row functions do not know (user terms, a second term of a kind already taken)
+come in as precomputed derivative rows from `solitons.routes` (jax evaluates their
+density pointwise on the staged local fields, ``stage_all``).
+
+Octant averages: with f_a, b_a the forward and backward difference along axis a,
+F_a = |f_a|^2, B_a = |b_a|^2, m_a = (F_a + B_a) / 2, M_a = f_a f_a^T + b_a b_a^T, the
+average over the eight octants is, in closed form (derived; the tests compare with the
+literal eight-octant average of `solitons.energy`):
+
+- (dn . dn)^2:        sum_a (F_a^2 + B_a^2) / 2 + 2 sum_{a<b} m_a m_b
+- sum_ij (d_i.d_j)^2: sum_a (F_a^2 + B_a^2) / 2 + (1/2) sum_{a<b} <M_a, M_b>
+- n . curl n:         linear in d, so n . curl((f + b) / 2)
+- sextic, log_quartic: the eight octants explicitly (``_octant_row``).
+"""
+
+from __future__ import annotations
+
+import numba as nb
+import numpy as np
+
+from solitons.kernels import _FAST, _plane_gradient, _plane_gradient_narrow, _site, _wrap_plane_frame
+
+# correction kinds with a row function, in the order of their energy slots
+EXTRA_KINDS = ("dirichlet_squared", "strain_squared", "potential", "laplacian_squared", "sextic", "chiral",
+               "log_quartic")
+# coefficient vector: c2, c4, then per extra kind its coupling (and constants)
+COEFFICIENTS = ("dirichlet", "skyrme_faddeev", "dirichlet_squared", "strain_squared", "potential",
+                "potential_power", "laplacian_squared", "sextic", "chiral", "log_quartic", "log_c0", "log_c1",
+                "log_scale4", "log_delta")
+SLOTS = 6 + len(EXTRA_KINDS) + 3  # base pieces, extra energies, extra Q_a
+LOCAL_ROWS, LAPLACIAN_ROWS = 21, 33  # staged rows without / with the Laplacian
+DERIVATIVE_ROWS = 24
+N_ROW, LAP_ROW, SCALE_ROW = 18, 21, 24
+_EXTRA_INDEX = (2, 3, 4, 6, 7, 8, 9)  # EXTRA_KINDS -> position of the coupling in COEFFICIENTS
+
+
+# ---- stage 1: local fields of one row ----
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _stage_row(buf, r, ci, cj, taps, ixf, ixb, iyf, iyb, fz, bz, lap, lap_x, lap_y, lap_z, reach, loc):
+    """loc[0:18] = differences (x+, x-, y+, y-, z+, z-; three components each), loc[18:21] =
+    n; with ``lap``: loc[21:24] = sum_a sum_o s_a[o] n(x + o e_a) and loc[24 + 3a + c] the
+    axis-a part scaled as h_a d/dh_a needs (see `laplacian_coefficients`).  lap_x (2, 7)
+    holds the coefficients of this x-plane (row 0 the Laplacian, row 1 the virial scaling),
+    lap_y (2, 7) of this row, lap_z (2, 7, Nz) per site."""
+    nz = loc.shape[1]
+    real = buf.dtype.type
+    t0, t2, t3, t4, t5 = real(taps[0]), real(taps[2]), real(taps[3]), real(taps[4]), real(taps[5])
+    for c in range(3):
+        centre = buf[c, ci, cj, r:r + nz]
+        own = loc[N_ROW + c]
+        for k in range(nz):
+            own[k] = centre[k]
+        for axis in range(3):
+            fw = loc[6 * axis + c]
+            bw = loc[6 * axis + 3 + c]
+            if axis == 0:
+                p1, m1 = buf[c, ci + 1, cj, r:r + nz], buf[c, ci - 1, cj, r:r + nz]
+            elif axis == 1:
+                p1, m1 = buf[c, ci, cj + 1, r:r + nz], buf[c, ci, cj - 1, r:r + nz]
+            else:
+                p1, m1 = buf[c, ci, cj, r + 1:r + 1 + nz], buf[c, ci, cj, r - 1:r - 1 + nz]
+            sf, sb = ixf, ixb
+            if axis == 1:
+                sf, sb = iyf, iyb
+            if r == 1:  # the one-site difference
+                if axis == 2:
+                    for k in range(nz):
+                        fw[k] = (p1[k] - centre[k]) * fz[k]
+                        bw[k] = (centre[k] - m1[k]) * bz[k]
+                else:
+                    for k in range(nz):
+                        fw[k] = (p1[k] - centre[k]) * sf
+                        bw[k] = (centre[k] - m1[k]) * sb
+                continue
+            if axis == 0:
+                p2, m2 = buf[c, ci + 2, cj, r:r + nz], buf[c, ci - 2, cj, r:r + nz]
+                p3, m3 = buf[c, ci + 3, cj, r:r + nz], buf[c, ci - 3, cj, r:r + nz]
+                p4, m4 = buf[c, ci + 4, cj, r:r + nz], buf[c, ci - 4, cj, r:r + nz]
+            elif axis == 1:
+                p2, m2 = buf[c, ci, cj + 2, r:r + nz], buf[c, ci, cj - 2, r:r + nz]
+                p3, m3 = buf[c, ci, cj + 3, r:r + nz], buf[c, ci, cj - 3, r:r + nz]
+                p4, m4 = buf[c, ci, cj + 4, r:r + nz], buf[c, ci, cj - 4, r:r + nz]
+            else:
+                p2, m2 = buf[c, ci, cj, r + 2:r + 2 + nz], buf[c, ci, cj, r - 2:r - 2 + nz]
+                p3, m3 = buf[c, ci, cj, r + 3:r + 3 + nz], buf[c, ci, cj, r - 3:r - 3 + nz]
+                p4, m4 = buf[c, ci, cj, r + 4:r + 4 + nz], buf[c, ci, cj, r - 4:r - 4 + nz]
+            if axis == 2:
+                for k in range(nz):
+                    n = centre[k]
+                    fw[k] = (t0 * (m1[k] - n) + t2 * (p1[k] - n) + t3 * (p2[k] - n) + t4 * (p3[k] - n)
+                             + t5 * (p4[k] - n)) * fz[k]
+                    bw[k] = -(t0 * (p1[k] - n) + t2 * (m1[k] - n) + t3 * (m2[k] - n) + t4 * (m3[k] - n)
+                              + t5 * (m4[k] - n)) * bz[k]
+            else:
+                for k in range(nz):
+                    n = centre[k]
+                    fw[k] = (t0 * (m1[k] - n) + t2 * (p1[k] - n) + t3 * (p2[k] - n) + t4 * (p3[k] - n)
+                             + t5 * (p4[k] - n)) * sf
+                    bw[k] = -(t0 * (p1[k] - n) + t2 * (m1[k] - n) + t3 * (m2[k] - n) + t4 * (m3[k] - n)
+                              + t5 * (m4[k] - n)) * sb
+        if lap:
+            total = loc[LAP_ROW + c]
+            for k in range(nz):
+                total[k] = real(0.0)
+            for axis in range(3):
+                part = loc[SCALE_ROW + 3 * axis + c]
+                for k in range(nz):
+                    part[k] = real(0.0)
+                for o in range(-reach, reach + 1):
+                    if axis == 0:
+                        values = buf[c, ci + o, cj, r:r + nz]
+                        s, v = lap_x[0, o + 3], lap_x[1, o + 3]
+                        for k in range(nz):
+                            total[k] += s * values[k]
+                            part[k] += v * values[k]
+                    elif axis == 1:
+                        values = buf[c, ci, cj + o, r:r + nz]
+                        s, v = lap_y[0, o + 3], lap_y[1, o + 3]
+                        for k in range(nz):
+                            total[k] += s * values[k]
+                            part[k] += v * values[k]
+                    else:
+                        values = buf[c, ci, cj, r + o:r + o + nz]
+                        sz, vz = lap_z[0, o + 3], lap_z[1, o + 3]
+                        for k in range(nz):
+                            total[k] += sz[k] * values[k]
+                            part[k] += vz[k] * values[k]
+
+
+# ---- stage 2: row functions of the correction terms ----
+# Each adds w * coupling * d(density)/d(local) into plane[q, cj, r:] and coupling * density
+# into dens, and returns (energy sum of w * coupling * density, Q_x, Q_y, Q_z).
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _dirichlet_squared_row(loc, plane, cj, r, dens, wrow, c):
+    real = loc.dtype.type
+    c, half, two = real(c), real(0.5), real(2.0)
+    fx0, fx1, fx2, bx0, bx1, bx2 = loc[0], loc[1], loc[2], loc[3], loc[4], loc[5]
+    fy0, fy1, fy2, by0, by1, by2 = loc[6], loc[7], loc[8], loc[9], loc[10], loc[11]
+    fz0, fz1, fz2, bz0, bz1, bz2 = loc[12], loc[13], loc[14], loc[15], loc[16], loc[17]
+    g0, g1, g2, g3, g4, g5 = (plane[0, cj, r:], plane[1, cj, r:], plane[2, cj, r:], plane[3, cj, r:],
+                              plane[4, cj, r:], plane[5, cj, r:])
+    g6, g7, g8, g9, g10, g11 = (plane[6, cj, r:], plane[7, cj, r:], plane[8, cj, r:], plane[9, cj, r:],
+                                plane[10, cj, r:], plane[11, cj, r:])
+    g12, g13, g14, g15, g16, g17 = (plane[12, cj, r:], plane[13, cj, r:], plane[14, cj, r:], plane[15, cj, r:],
+                                    plane[16, cj, r:], plane[17, cj, r:])
+    e = qx = qy = qz = real(0.0)
+    for k in range(wrow.shape[0]):
+        w = wrow[k]
+        ffx = fx0[k] * fx0[k] + fx1[k] * fx1[k] + fx2[k] * fx2[k]
+        bbx = bx0[k] * bx0[k] + bx1[k] * bx1[k] + bx2[k] * bx2[k]
+        ffy = fy0[k] * fy0[k] + fy1[k] * fy1[k] + fy2[k] * fy2[k]
+        bby = by0[k] * by0[k] + by1[k] * by1[k] + by2[k] * by2[k]
+        ffz = fz0[k] * fz0[k] + fz1[k] * fz1[k] + fz2[k] * fz2[k]
+        bbz = bz0[k] * bz0[k] + bz1[k] * bz1[k] + bz2[k] * bz2[k]
+        mx, my, mz = half * (ffx + bbx), half * (ffy + bby), half * (ffz + bbz)
+        rho = c * (half * (ffx * ffx + bbx * bbx + ffy * ffy + bby * bby + ffz * ffz + bbz * bbz)
+                   + two * (mx * my + mx * mz + my * mz))
+        dens[k] += rho
+        e += w * rho
+        cw = two * c * w
+        afx, abx = cw * (ffx + my + mz), cw * (bbx + my + mz)
+        afy, aby = cw * (ffy + mx + mz), cw * (bby + mx + mz)
+        afz, abz = cw * (ffz + mx + my), cw * (bbz + mx + my)
+        g0[k] += afx * fx0[k]
+        g1[k] += afx * fx1[k]
+        g2[k] += afx * fx2[k]
+        g3[k] += abx * bx0[k]
+        g4[k] += abx * bx1[k]
+        g5[k] += abx * bx2[k]
+        g6[k] += afy * fy0[k]
+        g7[k] += afy * fy1[k]
+        g8[k] += afy * fy2[k]
+        g9[k] += aby * by0[k]
+        g10[k] += aby * by1[k]
+        g11[k] += aby * by2[k]
+        g12[k] += afz * fz0[k]
+        g13[k] += afz * fz1[k]
+        g14[k] += afz * fz2[k]
+        g15[k] += abz * bz0[k]
+        g16[k] += abz * bz1[k]
+        g17[k] += abz * bz2[k]
+        qx += afx * ffx + abx * bbx
+        qy += afy * ffy + aby * bby
+        qz += afz * ffz + abz * bbz
+    return e, qx, qy, qz
+
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _strain_squared_row(loc, plane, cj, r, dens, wrow, c):
+    real = loc.dtype.type
+    c, half, two = real(c), real(0.5), real(2.0)
+    fx0, fx1, fx2, bx0, bx1, bx2 = loc[0], loc[1], loc[2], loc[3], loc[4], loc[5]
+    fy0, fy1, fy2, by0, by1, by2 = loc[6], loc[7], loc[8], loc[9], loc[10], loc[11]
+    fz0, fz1, fz2, bz0, bz1, bz2 = loc[12], loc[13], loc[14], loc[15], loc[16], loc[17]
+    g0, g1, g2, g3, g4, g5 = (plane[0, cj, r:], plane[1, cj, r:], plane[2, cj, r:], plane[3, cj, r:],
+                              plane[4, cj, r:], plane[5, cj, r:])
+    g6, g7, g8, g9, g10, g11 = (plane[6, cj, r:], plane[7, cj, r:], plane[8, cj, r:], plane[9, cj, r:],
+                                plane[10, cj, r:], plane[11, cj, r:])
+    g12, g13, g14, g15, g16, g17 = (plane[12, cj, r:], plane[13, cj, r:], plane[14, cj, r:], plane[15, cj, r:],
+                                    plane[16, cj, r:], plane[17, cj, r:])
+    e = qx = qy = qz = real(0.0)
+    for k in range(wrow.shape[0]):
+        w = wrow[k]
+        a0, a1, a2, b0, b1, b2 = fx0[k], fx1[k], fx2[k], bx0[k], bx1[k], bx2[k]
+        x00, x11, x22 = a0 * a0 + b0 * b0, a1 * a1 + b1 * b1, a2 * a2 + b2 * b2
+        x01, x02, x12 = a0 * a1 + b0 * b1, a0 * a2 + b0 * b2, a1 * a2 + b1 * b2
+        ffx, bbx = a0 * a0 + a1 * a1 + a2 * a2, b0 * b0 + b1 * b1 + b2 * b2
+        a0, a1, a2, b0, b1, b2 = fy0[k], fy1[k], fy2[k], by0[k], by1[k], by2[k]
+        y00, y11, y22 = a0 * a0 + b0 * b0, a1 * a1 + b1 * b1, a2 * a2 + b2 * b2
+        y01, y02, y12 = a0 * a1 + b0 * b1, a0 * a2 + b0 * b2, a1 * a2 + b1 * b2
+        ffy, bby = a0 * a0 + a1 * a1 + a2 * a2, b0 * b0 + b1 * b1 + b2 * b2
+        a0, a1, a2, b0, b1, b2 = fz0[k], fz1[k], fz2[k], bz0[k], bz1[k], bz2[k]
+        z00, z11, z22 = a0 * a0 + b0 * b0, a1 * a1 + b1 * b1, a2 * a2 + b2 * b2
+        z01, z02, z12 = a0 * a1 + b0 * b1, a0 * a2 + b0 * b2, a1 * a2 + b1 * b2
+        ffz, bbz = a0 * a0 + a1 * a1 + a2 * a2, b0 * b0 + b1 * b1 + b2 * b2
+        xy = x00 * y00 + x11 * y11 + x22 * y22 + two * (x01 * y01 + x02 * y02 + x12 * y12)
+        xz = x00 * z00 + x11 * z11 + x22 * z22 + two * (x01 * z01 + x02 * z02 + x12 * z12)
+        yz = y00 * z00 + y11 * z11 + y22 * z22 + two * (y01 * z01 + y02 * z02 + y12 * z12)
+        sq = ffx * ffx + bbx * bbx + ffy * ffy + bby * bby + ffz * ffz + bbz * bbz
+        rho = c * half * (sq + xy + xz + yz)
+        dens[k] += rho
+        e += w * rho
+        cw = c * w
+        # d/df_a = 2 F_a f_a + (M_b + M_c) f_a, times c w
+        k00, k11, k22 = cw * (y00 + z00), cw * (y11 + z11), cw * (y22 + z22)
+        k01, k02, k12 = cw * (y01 + z01), cw * (y02 + z02), cw * (y12 + z12)
+        sf, sb = two * cw * ffx, two * cw * bbx
+        a0, a1, a2, b0, b1, b2 = fx0[k], fx1[k], fx2[k], bx0[k], bx1[k], bx2[k]
+        g0[k] += sf * a0 + k00 * a0 + k01 * a1 + k02 * a2
+        g1[k] += sf * a1 + k01 * a0 + k11 * a1 + k12 * a2
+        g2[k] += sf * a2 + k02 * a0 + k12 * a1 + k22 * a2
+        g3[k] += sb * b0 + k00 * b0 + k01 * b1 + k02 * b2
+        g4[k] += sb * b1 + k01 * b0 + k11 * b1 + k12 * b2
+        g5[k] += sb * b2 + k02 * b0 + k12 * b1 + k22 * b2
+        k00, k11, k22 = cw * (x00 + z00), cw * (x11 + z11), cw * (x22 + z22)
+        k01, k02, k12 = cw * (x01 + z01), cw * (x02 + z02), cw * (x12 + z12)
+        sf, sb = two * cw * ffy, two * cw * bby
+        a0, a1, a2, b0, b1, b2 = fy0[k], fy1[k], fy2[k], by0[k], by1[k], by2[k]
+        g6[k] += sf * a0 + k00 * a0 + k01 * a1 + k02 * a2
+        g7[k] += sf * a1 + k01 * a0 + k11 * a1 + k12 * a2
+        g8[k] += sf * a2 + k02 * a0 + k12 * a1 + k22 * a2
+        g9[k] += sb * b0 + k00 * b0 + k01 * b1 + k02 * b2
+        g10[k] += sb * b1 + k01 * b0 + k11 * b1 + k12 * b2
+        g11[k] += sb * b2 + k02 * b0 + k12 * b1 + k22 * b2
+        k00, k11, k22 = cw * (x00 + y00), cw * (x11 + y11), cw * (x22 + y22)
+        k01, k02, k12 = cw * (x01 + y01), cw * (x02 + y02), cw * (x12 + y12)
+        sf, sb = two * cw * ffz, two * cw * bbz
+        a0, a1, a2, b0, b1, b2 = fz0[k], fz1[k], fz2[k], bz0[k], bz1[k], bz2[k]
+        g12[k] += sf * a0 + k00 * a0 + k01 * a1 + k02 * a2
+        g13[k] += sf * a1 + k01 * a0 + k11 * a1 + k12 * a2
+        g14[k] += sf * a2 + k02 * a0 + k12 * a1 + k22 * a2
+        g15[k] += sb * b0 + k00 * b0 + k01 * b1 + k02 * b2
+        g16[k] += sb * b1 + k01 * b0 + k11 * b1 + k12 * b2
+        g17[k] += sb * b2 + k02 * b0 + k12 * b1 + k22 * b2
+        # Q_a = 2 (F_a^2 + B_a^2) + <M_a, M_b> + <M_a, M_c>, times c w
+        qx += cw * (two * (ffx * ffx + bbx * bbx) + xy + xz)
+        qy += cw * (two * (ffy * ffy + bby * bby) + xy + yz)
+        qz += cw * (two * (ffz * ffz + bbz * bbz) + xz + yz)
+    return e, qx, qy, qz
+
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _potential_row(loc, plane, cj, r, dens, wrow, c, power):
+    """coupling mass^2 max(1 - n3, 0)^power: no derivatives of n, so Q_a = 0."""
+    real = loc.dtype.type
+    c, p, one, zero = real(c), real(power), real(1.0), real(0.0)
+    n2 = loc[N_ROW + 2]
+    g = plane[N_ROW + 2, cj, r:]
+    e = real(0.0)
+    if power == 1.0:
+        for k in range(wrow.shape[0]):
+            t = max(one - n2[k], zero)
+            rho = c * t
+            dens[k] += rho
+            e += wrow[k] * rho
+            g[k] -= c * wrow[k] if t > zero else zero
+    else:
+        for k in range(wrow.shape[0]):
+            t = max(one - n2[k], zero)
+            rho = c * t ** p
+            dens[k] += rho
+            e += wrow[k] * rho
+            g[k] -= c * wrow[k] * p * t ** (p - one) if t > zero else zero
+    return e, zero, zero, zero
+
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _laplacian_squared_row(loc, plane, cj, r, dens, wrow, c):
+    real = loc.dtype.type
+    c, two = real(c), real(2.0)
+    l0, l1, l2 = loc[LAP_ROW], loc[LAP_ROW + 1], loc[LAP_ROW + 2]
+    sx0, sx1, sx2 = loc[SCALE_ROW], loc[SCALE_ROW + 1], loc[SCALE_ROW + 2]
+    sy0, sy1, sy2 = loc[SCALE_ROW + 3], loc[SCALE_ROW + 4], loc[SCALE_ROW + 5]
+    sz0, sz1, sz2 = loc[SCALE_ROW + 6], loc[SCALE_ROW + 7], loc[SCALE_ROW + 8]
+    g0, g1, g2 = plane[LAP_ROW, cj, r:], plane[LAP_ROW + 1, cj, r:], plane[LAP_ROW + 2, cj, r:]
+    e = qx = qy = qz = real(0.0)
+    for k in range(wrow.shape[0]):
+        rho = c * (l0[k] * l0[k] + l1[k] * l1[k] + l2[k] * l2[k])
+        dens[k] += rho
+        e += wrow[k] * rho
+        a = two * c * wrow[k]
+        a0, a1, a2 = a * l0[k], a * l1[k], a * l2[k]
+        g0[k] += a0
+        g1[k] += a1
+        g2[k] += a2
+        qx += a0 * sx0[k] + a1 * sx1[k] + a2 * sx2[k]
+        qy += a0 * sy0[k] + a1 * sy1[k] + a2 * sy2[k]
+        qz += a0 * sz0[k] + a1 * sz1[k] + a2 * sz2[k]
+    return e, qx, qy, qz
+
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _chiral_row(loc, plane, cj, r, dens, wrow, c):
+    """n . curl n; linear in the differences, so the octant average is n . curl of the
+    mean difference (f_a + b_a) / 2."""
+    real = loc.dtype.type
+    c, half = real(c), real(0.5)
+    fx1, fx2, bx1, bx2 = loc[1], loc[2], loc[4], loc[5]
+    fy0, fy2, by0, by2 = loc[6], loc[8], loc[9], loc[11]
+    fz0, fz1, bz0, bz1 = loc[12], loc[13], loc[15], loc[16]
+    n0, n1, n2 = loc[N_ROW], loc[N_ROW + 1], loc[N_ROW + 2]
+    g1, g2, g4, g5 = plane[1, cj, r:], plane[2, cj, r:], plane[4, cj, r:], plane[5, cj, r:]
+    g6, g8, g9, g11 = plane[6, cj, r:], plane[8, cj, r:], plane[9, cj, r:], plane[11, cj, r:]
+    g12, g13, g15, g16 = plane[12, cj, r:], plane[13, cj, r:], plane[15, cj, r:], plane[16, cj, r:]
+    gn0, gn1, gn2 = plane[N_ROW, cj, r:], plane[N_ROW + 1, cj, r:], plane[N_ROW + 2, cj, r:]
+    e = qx = qy = qz = real(0.0)
+    for k in range(wrow.shape[0]):
+        ax1, ax2 = half * (fx1[k] + bx1[k]), half * (fx2[k] + bx2[k])
+        ay0, ay2 = half * (fy0[k] + by0[k]), half * (fy2[k] + by2[k])
+        az0, az1 = half * (fz0[k] + bz0[k]), half * (fz1[k] + bz1[k])
+        m0, m1, m2 = n0[k], n1[k], n2[k]
+        curl0, curl1, curl2 = ay2 - az1, az0 - ax2, ax1 - ay0
+        rho = c * (m0 * curl0 + m1 * curl1 + m2 * curl2)
+        dens[k] += rho
+        e += wrow[k] * rho
+        cw = c * wrow[k]
+        gn0[k] += cw * curl0
+        gn1[k] += cw * curl1
+        gn2[k] += cw * curl2
+        h = half * cw
+        # d rho / d dbar_x = (0, n2, -n1), d/d dbar_y = (-n2, 0, n0), d/d dbar_z = (n1, -n0, 0)
+        g1[k] += h * m2
+        g2[k] -= h * m1
+        g4[k] += h * m2
+        g5[k] -= h * m1
+        g6[k] -= h * m2
+        g8[k] += h * m0
+        g9[k] -= h * m2
+        g11[k] += h * m0
+        g12[k] += h * m1
+        g13[k] -= h * m0
+        g15[k] += h * m1
+        g16[k] -= h * m0
+        qx += cw * (ax1 * m2 - ax2 * m1)
+        qy += cw * (ay2 * m0 - ay0 * m2)
+        qz += cw * (az0 * m1 - az1 * m0)
+    return e, qx, qy, qz
+
+
+@nb.njit(inline="always", fastmath=_FAST, error_model="numpy")
+def _h2_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2):
+    """H^2 = sum_{a<b} |d_a x d_b|^2, the Dirichlet sum D and dH^2/d(d_a) of one octant."""
+    a = x0 * x0 + x1 * x1 + x2 * x2
+    b = y0 * y0 + y1 * y1 + y2 * y2
+    c = z0 * z0 + z1 * z1 + z2 * z2
+    pxy = x0 * y0 + x1 * y1 + x2 * y2
+    pxz = x0 * z0 + x1 * z1 + x2 * z2
+    pyz = y0 * z0 + y1 * z1 + y2 * z2
+    h2 = a * b - pxy * pxy + a * c - pxz * pxz + b * c - pyz * pyz
+    sx, sy, sz = b + c, a + c, a + b
+    gx0 = sx * x0 - pxy * y0 - pxz * z0
+    gx1 = sx * x1 - pxy * y1 - pxz * z1
+    gx2 = sx * x2 - pxy * y2 - pxz * z2
+    gy0 = sy * y0 - pxy * x0 - pyz * z0
+    gy1 = sy * y1 - pxy * x1 - pyz * z1
+    gy2 = sy * y2 - pxy * x2 - pyz * z2
+    gz0 = sz * z0 - pxz * x0 - pyz * y0
+    gz1 = sz * z1 - pxz * x1 - pyz * y1
+    gz2 = sz * z2 - pxz * x2 - pyz * y2
+    # (the factor 2 of dH^2/dd is applied by the callers)
+    return h2, a + b + c, gx0, gx1, gx2, gy0, gy1, gy2, gz0, gz1, gz2
+
+
+@nb.njit(inline="always", fastmath=_FAST, error_model="numpy")
+def _sextic_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2, constants, logarithm):
+    """H^2 D and its derivatives: D dH^2/dd_a + 2 H^2 d_a."""
+    h2, dsum, gx0, gx1, gx2, gy0, gy1, gy2, gz0, gz1, gz2 = _h2_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2)
+    two = constants[4]
+    s, t = two * dsum, two * h2
+    return (h2 * dsum, s * gx0 + t * x0, s * gx1 + t * x1, s * gx2 + t * x2, s * gy0 + t * y0, s * gy1 + t * y1,
+            s * gy2 + t * y2, s * gz0 + t * z0, s * gz1 + t * z1, s * gz2 + t * z2)
+
+
+@nb.njit(inline="always", fastmath=_FAST, error_model="numpy")
+def _log_quartic_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2, constants, logarithm):
+    """H^2 (c0 + c1 ln((H^2 + delta m4) / m4)) and its derivatives phi' dH^2/dd_a with
+    phi' = c0 + c1 ln(...) + c1 H^2 / (H^2 + delta m4); ``logarithm`` is the ln(...) of this
+    octant, computed beforehand for the whole row (`_row_logarithms`)."""
+    c0, c1, m4, dm4, two = constants
+    h2, dsum, gx0, gx1, gx2, gy0, gy1, gy2, gz0, gz1, gz2 = _h2_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2)
+    shifted = h2 + dm4
+    bracket = c0 + c1 * logarithm
+    s = two * (bracket + c1 * h2 / shifted)
+    return (h2 * bracket, s * gx0, s * gx1, s * gx2, s * gy0, s * gy1, s * gy2, s * gz0, s * gz1, s * gz2)
+
+
+@nb.njit(inline="always", fastmath=_FAST, error_model="numpy")
+def _octant(x0, x1, x2, y0, y1, y2, z0, z1, z2, mode, constants, logarithm):
+    """The density of term ``mode`` on one octant (0 sextic, 1 log_quartic) and its
+    derivatives with respect to the three differences.  ``mode`` is a constant in each
+    row function below, so after inlining the branch folds away (a function passed as an
+    argument instead would keep numba from caching the compiled kernel)."""
+    if mode == 0:
+        return _sextic_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2, constants, logarithm)
+    return _log_quartic_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2, constants, logarithm)
+
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _sextic_row(loc, plane, cj, r, dens, wrow, c, constants, logs):
+    return _octant_row(loc, plane, cj, r, dens, wrow, c, 0, constants, logs)
+
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _log_quartic_row(loc, plane, cj, r, dens, wrow, c, constants, logs):
+    _row_logarithms(loc, constants, logs)
+    return _octant_row(loc, plane, cj, r, dens, wrow, c, 1, constants, logs)
+
+
+_LN2_HI, _LN2_LO = 6.93147180369123816490e-01, 1.90821492927058770002e-10  # fdlibm's split of ln 2
+_MANTISSA, _ONE_BITS = 0x000FFFFFFFFFFFFF, 0x3FF0000000000000
+
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def vector_log(values, work, exponents):
+    """In place: values[k] = ln(values[k]) for positive normal float64 values, in loops
+    that vectorise (libm's log is a scalar call).  x = 2^e m with m in [sqrt(1/2),
+    sqrt(2)); ln m = 2 atanh(s), s = (m - 1) / (m + 1), |s| < 0.172, summed to s^25 (the
+    next term is below 1e-20 of ln m); ln 2 split in two parts (fdlibm's constants).
+    Within 3 units in the last place of np.log (tested).  ``work`` (int64) and
+    ``exponents`` (float64): rows as long, distinct from ``values``."""
+    bits = values.view(np.int64)
+    n = values.shape[0]
+    for k in range(n):
+        b = bits[k]
+        work[k] = (b & _MANTISSA) | _ONE_BITS
+        exponents[k] = np.float64((b >> 52) - 1023)
+    mantissa = work.view(np.float64)
+    for k in range(n):
+        m = mantissa[k]
+        e = exponents[k]
+        big = m > 1.4142135623730951
+        m = m * 0.5 if big else m
+        e = e + 1.0 if big else e
+        s = (m - 1.0) / (m + 1.0)
+        z = s * s
+        series = 1.0 + z * (1.0 / 3 + z * (1.0 / 5 + z * (1.0 / 7 + z * (1.0 / 9 + z * (1.0 / 11 + z * (
+            1.0 / 13 + z * (1.0 / 15 + z * (1.0 / 17 + z * (1.0 / 19 + z * (1.0 / 21 + z * (1.0 / 23 + z * (
+                1.0 / 25))))))))))))
+        values[k] = e * _LN2_HI + (2.0 * s * series + e * _LN2_LO)
+
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _row_logarithms(loc, constants, logs):
+    """logs[o, k] = ln((H^2 + delta m4) / m4) of octant o (the order of `_octant_row`);
+    logs (10, Nz) float64, rows 8 and 9 work space."""
+    c0, c1, m4, dm4, two = constants
+    nz = logs.shape[1]
+    fx0, fx1, fx2, bx0, bx1, bx2 = loc[0], loc[1], loc[2], loc[3], loc[4], loc[5]
+    fy0, fy1, fy2, by0, by1, by2 = loc[6], loc[7], loc[8], loc[9], loc[10], loc[11]
+    fz0, fz1, fz2, bz0, bz1, bz2 = loc[12], loc[13], loc[14], loc[15], loc[16], loc[17]
+    l1, l2, l3, l4, l5, l6, l7, l8 = logs[0], logs[1], logs[2], logs[3], logs[4], logs[5], logs[6], logs[7]
+    inverse = 1.0 / np.float64(m4)
+    for k in range(nz):
+        a0, a1, a2, b0, b1, b2 = fx0[k], fx1[k], fx2[k], bx0[k], bx1[k], bx2[k]
+        p0, p1, p2, q0, q1, q2 = fy0[k], fy1[k], fy2[k], by0[k], by1[k], by2[k]
+        u0, u1, u2, v0, v1, v2 = fz0[k], fz1[k], fz2[k], bz0[k], bz1[k], bz2[k]
+        l1[k] = (_h2_octant(a0, a1, a2, p0, p1, p2, u0, u1, u2)[0] + dm4) * inverse
+        l2[k] = (_h2_octant(a0, a1, a2, p0, p1, p2, v0, v1, v2)[0] + dm4) * inverse
+        l3[k] = (_h2_octant(a0, a1, a2, q0, q1, q2, u0, u1, u2)[0] + dm4) * inverse
+        l4[k] = (_h2_octant(a0, a1, a2, q0, q1, q2, v0, v1, v2)[0] + dm4) * inverse
+        l5[k] = (_h2_octant(b0, b1, b2, p0, p1, p2, u0, u1, u2)[0] + dm4) * inverse
+        l6[k] = (_h2_octant(b0, b1, b2, p0, p1, p2, v0, v1, v2)[0] + dm4) * inverse
+        l7[k] = (_h2_octant(b0, b1, b2, q0, q1, q2, u0, u1, u2)[0] + dm4) * inverse
+        l8[k] = (_h2_octant(b0, b1, b2, q0, q1, q2, v0, v1, v2)[0] + dm4) * inverse
+    work = logs[8].view(np.int64)
+    for o in range(8):
+        vector_log(logs[o], work, logs[9])
+
+
+@nb.njit(inline="always", fastmath=_FAST, error_model="numpy")
+def _octant_row(loc, plane, cj, r, dens, wrow, c, mode, constants, logs):
+    """A term evaluated on each of the eight octants (`_octant`), averaged."""
+    real = loc.dtype.type
+    eighth = real(0.125) * real(c)
+    fx0, fx1, fx2, bx0, bx1, bx2 = loc[0], loc[1], loc[2], loc[3], loc[4], loc[5]
+    fy0, fy1, fy2, by0, by1, by2 = loc[6], loc[7], loc[8], loc[9], loc[10], loc[11]
+    fz0, fz1, fz2, bz0, bz1, bz2 = loc[12], loc[13], loc[14], loc[15], loc[16], loc[17]
+    g0, g1, g2, g3, g4, g5 = (plane[0, cj, r:], plane[1, cj, r:], plane[2, cj, r:], plane[3, cj, r:],
+                              plane[4, cj, r:], plane[5, cj, r:])
+    g6, g7, g8, g9, g10, g11 = (plane[6, cj, r:], plane[7, cj, r:], plane[8, cj, r:], plane[9, cj, r:],
+                                plane[10, cj, r:], plane[11, cj, r:])
+    g12, g13, g14, g15, g16, g17 = (plane[12, cj, r:], plane[13, cj, r:], plane[14, cj, r:], plane[15, cj, r:],
+                                    plane[16, cj, r:], plane[17, cj, r:])
+    lg1, lg2, lg3, lg4, lg5, lg6, lg7, lg8 = logs[0], logs[1], logs[2], logs[3], logs[4], logs[5], logs[6], logs[7]
+    e = qx = qy = qz = real(0.0)
+    for k in range(wrow.shape[0]):
+        a0, a1, a2, b0, b1, b2 = fx0[k], fx1[k], fx2[k], bx0[k], bx1[k], bx2[k]
+        p0, p1, p2, q0, q1, q2 = fy0[k], fy1[k], fy2[k], by0[k], by1[k], by2[k]
+        u0, u1, u2, v0, v1, v2 = fz0[k], fz1[k], fz2[k], bz0[k], bz1[k], bz2[k]
+        # x: f = a, b = b; y: f = p, b = q; z: f = u, b = v
+        o1 = _octant(a0, a1, a2, p0, p1, p2, u0, u1, u2, mode, constants, lg1[k])
+        o2 = _octant(a0, a1, a2, p0, p1, p2, v0, v1, v2, mode, constants, lg2[k])
+        o3 = _octant(a0, a1, a2, q0, q1, q2, u0, u1, u2, mode, constants, lg3[k])
+        o4 = _octant(a0, a1, a2, q0, q1, q2, v0, v1, v2, mode, constants, lg4[k])
+        o5 = _octant(b0, b1, b2, p0, p1, p2, u0, u1, u2, mode, constants, lg5[k])
+        o6 = _octant(b0, b1, b2, p0, p1, p2, v0, v1, v2, mode, constants, lg6[k])
+        o7 = _octant(b0, b1, b2, q0, q1, q2, u0, u1, u2, mode, constants, lg7[k])
+        o8 = _octant(b0, b1, b2, q0, q1, q2, v0, v1, v2, mode, constants, lg8[k])
+        rho = eighth * (o1[0] + o2[0] + o3[0] + o4[0] + o5[0] + o6[0] + o7[0] + o8[0])
+        dens[k] += rho
+        w = wrow[k]
+        e += w * rho
+        s = eighth * w
+        dfx0 = s * (o1[1] + o2[1] + o3[1] + o4[1])
+        dfx1 = s * (o1[2] + o2[2] + o3[2] + o4[2])
+        dfx2 = s * (o1[3] + o2[3] + o3[3] + o4[3])
+        dbx0 = s * (o5[1] + o6[1] + o7[1] + o8[1])
+        dbx1 = s * (o5[2] + o6[2] + o7[2] + o8[2])
+        dbx2 = s * (o5[3] + o6[3] + o7[3] + o8[3])
+        dfy0 = s * (o1[4] + o2[4] + o5[4] + o6[4])
+        dfy1 = s * (o1[5] + o2[5] + o5[5] + o6[5])
+        dfy2 = s * (o1[6] + o2[6] + o5[6] + o6[6])
+        dby0 = s * (o3[4] + o4[4] + o7[4] + o8[4])
+        dby1 = s * (o3[5] + o4[5] + o7[5] + o8[5])
+        dby2 = s * (o3[6] + o4[6] + o7[6] + o8[6])
+        dfz0 = s * (o1[7] + o3[7] + o5[7] + o7[7])
+        dfz1 = s * (o1[8] + o3[8] + o5[8] + o7[8])
+        dfz2 = s * (o1[9] + o3[9] + o5[9] + o7[9])
+        dbz0 = s * (o2[7] + o4[7] + o6[7] + o8[7])
+        dbz1 = s * (o2[8] + o4[8] + o6[8] + o8[8])
+        dbz2 = s * (o2[9] + o4[9] + o6[9] + o8[9])
+        g0[k] += dfx0
+        g1[k] += dfx1
+        g2[k] += dfx2
+        g3[k] += dbx0
+        g4[k] += dbx1
+        g5[k] += dbx2
+        g6[k] += dfy0
+        g7[k] += dfy1
+        g8[k] += dfy2
+        g9[k] += dby0
+        g10[k] += dby1
+        g11[k] += dby2
+        g12[k] += dfz0
+        g13[k] += dfz1
+        g14[k] += dfz2
+        g15[k] += dbz0
+        g16[k] += dbz1
+        g17[k] += dbz2
+        qx += dfx0 * a0 + dfx1 * a1 + dfx2 * a2 + dbx0 * b0 + dbx1 * b1 + dbx2 * b2
+        qy += dfy0 * p0 + dfy1 * p1 + dfy2 * p2 + dby0 * q0 + dby1 * q1 + dby2 * q2
+        qz += dfz0 * u0 + dfz1 * u1 + dfz2 * u2 + dbz0 * v0 + dbz1 * v1 + dbz2 * v2
+    return e, qx, qy, qz
+
+
+# ---- one x-plane: stages 1 and 2 ----
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _plane_staged(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, coefs, lap, lap_x, lap_y, lap_z, reach,
+                  plane, loc, wrow, spare, logs, density, store_density, user, user_der, clear_extra):
+    """Derivative plane (24 rows) and the SLOTS energy/virial sums of x-plane i.  The
+    density goes to density[i] when ``store_density``, else to the thread's ``spare`` row
+    (a halo plane is computed by two threads)."""
+    ny, nz = buf.shape[2] - 2 * r, buf.shape[3] - 2 * r
+    real = buf.dtype.type
+    c2, c4 = real(coefs[0]), real(coefs[1])
+    h, half, quarter, two, one = real(0.5 * coefs[1]), real(0.5), real(0.25), real(2.0), real(1.0)
+    constants = (c2, c4, h, half, quarter, two)
+    sums = np.zeros(SLOTS)
+    ci = i + r
+    ixf, ixb = fx[i], bx[i]
+    base = coefs[0] != 0.0 or coefs[1] != 0.0
+    log_constants = (real(coefs[10]), real(coefs[11]), real(coefs[12]), real(coefs[12] * coefs[13]), two)
+    sextic_constants = (real(0.0), real(0.0), real(0.0), real(0.0), two)
+    for j in range(ny):
+        cj = j + r
+        iyf, iyb = fy[j], by[j]
+        wxy = wx[i] * wy[j]
+        for k in range(nz):
+            wrow[k] = wxy * wz[k]
+        _stage_row(buf, r, ci, cj, taps, ixf, ixb, iyf, iyb, fz, bz, lap, lap_x[i], lap_y[j], lap_z, reach, loc)
+        dens = density[i, j] if store_density else spare
+        rows = plane[:, cj, r:r + nz]
+        for q in range(0 if not base else 18, DERIVATIVE_ROWS if clear_extra else 18):
+            row = rows[q]
+            for k in range(nz):
+                row[k] = real(0.0)
+        for k in range(nz):
+            dens[k] = real(0.0)
+        if base:
+            d0, d1, d2, d3, d4, d5 = rows[0], rows[1], rows[2], rows[3], rows[4], rows[5]
+            d6, d7, d8, d9, d10, d11 = rows[6], rows[7], rows[8], rows[9], rows[10], rows[11]
+            d12, d13, d14, d15, d16, d17 = rows[12], rows[13], rows[14], rows[15], rows[16], rows[17]
+            l0, l1, l2, l3, l4, l5 = loc[0], loc[1], loc[2], loc[3], loc[4], loc[5]
+            l6, l7, l8, l9, l10, l11 = loc[6], loc[7], loc[8], loc[9], loc[10], loc[11]
+            l12, l13, l14, l15, l16, l17 = loc[12], loc[13], loc[14], loc[15], loc[16], loc[17]
+            r0 = r1 = r2 = r3 = r4 = r5 = real(0.0)
+            for k in range(nz):
+                (e0, e1, e2, e3, e4, e5, e, g0, g1, g2, g3, g4, g5, g6, g7, g8, g9, g10, g11, g12, g13, g14, g15,
+                 g16, g17) = _site((l0[k], l1[k], l2[k], l3[k], l4[k], l5[k], l6[k], l7[k], l8[k], l9[k], l10[k],
+                                    l11[k], l12[k], l13[k], l14[k], l15[k], l16[k], l17[k]),
+                                   constants, wrow[k], (one, one, one, one, one, one))
+                dens[k] = e
+                d0[k], d1[k], d2[k], d3[k], d4[k], d5[k] = g0, g1, g2, g3, g4, g5
+                d6[k], d7[k], d8[k], d9[k], d10[k], d11[k] = g6, g7, g8, g9, g10, g11
+                d12[k], d13[k], d14[k], d15[k], d16[k], d17[k] = g12, g13, g14, g15, g16, g17
+                r0 += e0
+                r1 += e1
+                r2 += e2
+                r3 += e3
+                r4 += e4
+                r5 += e5
+            sums[0] += r0
+            sums[1] += r1
+            sums[2] += r2
+            sums[3] += r3
+            sums[4] += r4
+            sums[5] += r5
+        for slot in range(len(EXTRA_KINDS)):
+            c = coefs[_EXTRA_INDEX[slot]]
+            if c == 0.0:
+                continue
+            if slot == 0:
+                piece = _dirichlet_squared_row(loc, plane, cj, r, dens, wrow, c)
+            elif slot == 1:
+                piece = _strain_squared_row(loc, plane, cj, r, dens, wrow, c)
+            elif slot == 2:
+                piece = _potential_row(loc, plane, cj, r, dens, wrow, c, coefs[5])
+            elif slot == 3:
+                piece = _laplacian_squared_row(loc, plane, cj, r, dens, wrow, c)
+            elif slot == 4:
+                piece = _sextic_row(loc, plane, cj, r, dens, wrow, c, sextic_constants, logs)
+            elif slot == 5:
+                piece = _chiral_row(loc, plane, cj, r, dens, wrow, c)
+            else:
+                piece = _log_quartic_row(loc, plane, cj, r, dens, wrow, c, log_constants, logs)
+            sums[6 + slot] += piece[0]
+            sums[13] += piece[1]
+            sums[14] += piece[2]
+            sums[15] += piece[3]
+        if user:
+            for q in range(user_der.shape[0]):
+                row = rows[q]
+                extra = user_der[q, i, j]
+                for k in range(nz):
+                    row[k] += extra[k]
+        # stage 3 starts here: the difference rows times their factors
+        for c in range(3):
+            a0, a1 = rows[c], rows[3 + c]
+            a2, a3 = rows[6 + c], rows[9 + c]
+            a4, a5 = rows[12 + c], rows[15 + c]
+            for k in range(nz):
+                a0[k] *= ixf
+                a1[k] *= ixb
+                a2[k] *= iyf
+                a3[k] *= iyb
+                a4[k] *= fz[k]
+                a5[k] *= bz[k]
+    return sums
+
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _plane_gradient_extra(buf, r, g, ring, span, lap, reach, gather_x, gather_y, gather_z, lo, w, acc, out):
+    """Adds w P(dE/dn) of the n rows (18-20) and the Laplacian rows (21-23) of x-plane g:
+    site x collects the n rows at x and, per axis, sum_o s_a(x - o e_a)[o] L(x - o e_a) (the
+    transposed central stencil; ``gather_a[o + 3, i]`` = s_a at site i - o)."""
+    ny, nz = out.shape[1], out.shape[2] // 3
+    ci = g + r
+    b, m = r + lo, nz - 2 * lo
+    own = ring[g % span]
+    for j in range(lo, ny - lo):
+        cj = j + r
+        n0, n1, n2 = buf[0, ci, cj, b:b + m], buf[1, ci, cj, b:b + m], buf[2, ci, cj, b:b + m]
+        for c in range(3):
+            total = acc[c, :m]
+            source = own[N_ROW + c, cj, b:b + m]
+            for k in range(m):
+                total[k] = source[k]
+            if lap:
+                for o in range(-reach, reach + 1):
+                    sx = gather_x[o + 3, g]
+                    values = ring[(g - o) % span][LAP_ROW + c, cj, b:b + m]
+                    for k in range(m):
+                        total[k] += sx * values[k]
+                    sy = gather_y[o + 3, j]
+                    values = own[LAP_ROW + c, cj - o, b:b + m]
+                    for k in range(m):
+                        total[k] += sy * values[k]
+                    sz = gather_z[o + 3, lo:lo + m]
+                    values = own[LAP_ROW + c, cj, b - o:b - o + m]
+                    for k in range(m):
+                        total[k] += sz[k] * values[k]
+        t0, t1, t2 = acc[0, :m], acc[1, :m], acc[2, :m]
+        row = out[g, j, 3 * lo:]
+        for k in range(m):
+            along = t0[k] * n0[k] + t1[k] * n1[k] + t2[k] * n2[k]
+            row[3 * k] += w * (t0[k] - along * n0[k])
+            row[3 * k + 1] += w * (t1[k] - along * n1[k])
+            row[3 * k + 2] += w * (t2[k] - along * n2[k])
+
+
+@nb.njit(parallel=True, cache=True)
+def _fused_staged(buf, r, narrow, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, coefs, lap, lap_x, lap_y, lap_z,
+                  gather_x, gather_y, gather_z, reach, extra_gather, periodic, w, gradient, store_density, rings,
+                  scratch, logs, parts, density, user, user_der, out):
+    """`solitons.kernels._fused` for the staged route: one slab per thread with a ring of
+    2 r + 1 derivative planes (24 rows each)."""
+    nx = buf.shape[1] - 2 * r
+    slabs = rings.shape[0]
+    span = 2 * r + 1
+    lo = 0 if periodic else 1
+    nz = buf.shape[3] - 2 * r
+    for t in nb.prange(slabs):
+        i0 = t * nx // slabs
+        i1 = (t + 1) * nx // slabs
+        ring = rings[t]
+        loc = scratch[t, :loc_rows(lap)]
+        acc = scratch[t, LAPLACIAN_ROWS:LAPLACIAN_ROWS + 3]
+        wrow = scratch[t, LAPLACIAN_ROWS + 3]
+        spare = scratch[t, LAPLACIAN_ROWS + 4]
+        first, last = (i0 - r, i1 + r) if gradient else (i0, i1)
+        for ip in range(first, last):
+            plane = ring[ip % span]
+            owned = i0 <= ip < i1
+            if not periodic and (ip < 0 or ip >= nx):
+                plane[:] = 0.0
+            else:
+                i = ip % nx
+                sums = _plane_staged(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, coefs, lap, lap_x, lap_y,
+                                     lap_z, reach, plane, loc, wrow[:nz], spare[:nz], logs[t], density, store_density and owned,
+                                     user, user_der, extra_gather)
+                if owned:
+                    for q in range(SLOTS):
+                        parts[i, q] = sums[q]
+                if periodic:
+                    _wrap_plane_frame(plane, r)
+            g = ip - r
+            if gradient and g >= i0 and lo <= g < nx - lo:
+                if narrow:
+                    _plane_gradient_narrow(buf, r, g, ring[(g - 1) % span], ring[g % span], ring[(g + 1) % span],
+                                           lo, w, out)
+                else:
+                    planes = (ring[(g - 4) % span], ring[(g - 3) % span], ring[(g - 2) % span],
+                              ring[(g - 1) % span], ring[g % span], ring[(g + 1) % span], ring[(g + 2) % span],
+                              ring[(g + 3) % span], ring[(g + 4) % span])
+                    _plane_gradient(buf, r, g, taps, planes, lo, w, out)
+                if extra_gather:
+                    _plane_gradient_extra(buf, r, g, ring, span, lap, reach, gather_x, gather_y, gather_z, lo, w,
+                                          acc, out)
+
+
+@nb.njit(cache=True)
+def loc_rows(lap):
+    return LAPLACIAN_ROWS if lap else LOCAL_ROWS
+
+
+@nb.njit(parallel=True, cache=True)
+def _stage_all(buf, r, taps, fx, bx, fy, by, fz, bz, lap, lap_x, lap_y, lap_z, reach, out):
+    """Stage 1 over the whole grid: out[q, i, j, k] (the local fields of every site)."""
+    nx, ny = out.shape[1], out.shape[2]
+    for i in nb.prange(nx):
+        for j in range(ny):
+            _stage_row(buf, r, i + r, j + r, taps, fx[i], bx[i], fy[j], by[j], fz, bz, lap, lap_x[i], lap_y[j],
+                       lap_z, reach, out[:, i, j, :])
+
+
+# ---- drivers (numpy in, numpy out) ----
+
+def laplacian_coefficients(shape, spacing, stencil, stretch_terms=None, dtype=np.float64):
+    """Per axis: the staging coefficients (n_a, 2, 7) (row 0 the Laplacian's, row 1 its
+    virial scaling 2 A l_o / h^2 + B c_o / h) and the gather coefficients (7, n_a) (site i
+    collects the Laplacian rows of site i - o with the staging coefficient of that site).
+    lap_a = A (sum_o l_o n(x + o e_a)) / h^2 + B (sum_o c_o n(x + o e_a)) / h, with A = 1 and
+    B = 0 on a uniform axis, A = 1 / x'^2 and B = -x'' / x'^3 on a stretched one
+    (``stretch_terms[a]`` = (A, B) arrays, see `solitons.routes`)."""
+    staging, gathering = [], []
+    lap, central = np.asarray(stencil.laplacian), np.asarray(stencil.central)
+    for axis, (n, h) in enumerate(zip(shape, spacing)):
+        a, b = (np.ones(n), np.zeros(n)) if stretch_terms is None or stretch_terms[axis] is None \
+            else stretch_terms[axis]
+        s = np.empty((n, 2, 7))
+        s[:, 0, :] = a[:, None] * lap[None, :] / h**2 + b[:, None] * central[None, :] / h
+        s[:, 1, :] = 2.0 * a[:, None] * lap[None, :] / h**2 + b[:, None] * central[None, :] / h
+        g = np.empty((7, n))
+        for o in range(-3, 4):
+            g[o + 3] = s[(np.arange(n) - o) % n, 0, o + 3]
+        staging.append(np.ascontiguousarray(s, dtype=dtype))
+        gathering.append(np.ascontiguousarray(g, dtype=dtype))
+    lap_z = np.ascontiguousarray(np.moveaxis(staging[2], 0, -1))  # (2, 7, nz)
+    return staging[0], staging[1], lap_z, gathering[0], gathering[1], gathering[2]
+
+
+def _geometry(field, spacing, metric, taps):
+    from solitons.grid import PAD_WIDTH
+    from solitons.kernels import NARROW_TAPS, _factors
+
+    real = field.dtype.type
+    narrow = tuple(taps) == NARROW_TAPS
+    r = 1 if narrow else PAD_WIDTH
+    per_axis = [_factors(n, h, real, None if metric is None else metric[a])
+                for a, (n, h) in enumerate(zip(field.shape[:3], spacing))]
+    return narrow, r, per_axis
+
+
+def _padded(field, r, periodic):
+    from solitons.kernels import _buffer, _to_padded_planes
+
+    nx, ny, nz, _ = field.shape
+    buf = _buffer(("field", r), (3, nx + 2 * r, ny + 2 * r, nz + 2 * r), field.dtype)
+    _to_padded_planes(field, r, periodic, buf)
+    return buf
+
+
+def stage_all(field, spacing, periodic, taps, metric, lap_info):
+    """The local fields of every site, (rows, Nx, Ny, Nz): `LOCAL_ROWS` rows, or
+    `LAPLACIAN_ROWS` when ``lap_info`` (from `laplacian_coefficients`) is given."""
+    field = np.ascontiguousarray(field)
+    spacing = tuple(float(h) for h in spacing)
+    narrow, r, ((fx, bx, _), (fy, by, _), (fz, bz, _)) = _geometry(field, spacing, metric, taps)
+    buf = _padded(field, r, periodic)
+    lap = lap_info is not None
+    lap_x, lap_y, lap_z = lap_info[:3] if lap else _NO_LAPLACIAN[:3]
+    out = np.empty((LAPLACIAN_ROWS if lap else LOCAL_ROWS,) + field.shape[:3], dtype=field.dtype)
+    _stage_all(buf, r, tuple(float(t) for t in taps), fx, bx, fy, by, fz, bz, lap, lap_x.astype(field.dtype),
+               lap_y.astype(field.dtype), lap_z.astype(field.dtype), 1 if narrow else 3, out)
+    return out
+
+
+_NO_LAPLACIAN = (np.zeros((1, 2, 7)), np.zeros((1, 2, 7)), np.zeros((2, 7, 1)), np.zeros((7, 1)), np.zeros((7, 1)),
+                 np.zeros((7, 1)))
+
+
+def run(field, spacing, periodic, taps, coefs, normalisation, metric=None, lap_info=None, out=None, gradient=True,
+        store_density=True, user_der=None, extra_gather=False):
+    """One pass of the staged route.  Returns (sums, density, gradient): sums (SLOTS,) of
+    normalisation * cell volume * (base pieces as in `solitons.kernels`, extra term
+    energies in `EXTRA_KINDS` order, Q_x, Q_y, Q_z of the extra terms); density the
+    normalised energy density of the built-in terms (or None); gradient as in
+    `solitons.kernels.value_and_grad` with ``user_der`` (rows, Nx, Ny, Nz; derivatives of
+    the weighted unnormalised density of further terms with respect to the staged local
+    fields) included.  ``extra_gather``: some term has n or Laplacian derivatives."""
+    from solitons.kernels import _NO_GRADIENT, _buffer
+
+    field = np.ascontiguousarray(field)
+    nx, ny, nz, _ = field.shape
+    spacing = tuple(float(h) for h in spacing)
+    scale = normalisation * spacing[0] * spacing[1] * spacing[2]
+    real = field.dtype.type
+    narrow, r, ((fx, bx, wx), (fy, by, wy), (fz, bz, wz)) = _geometry(field, spacing, metric, taps)
+    if gradient:
+        if out is None:
+            out = np.empty_like(field)
+        if not periodic:
+            out[0], out[-1], out[:, 0], out[:, -1], out[:, :, 0], out[:, :, -1] = 0, 0, 0, 0, 0, 0
+    lap = lap_info is not None
+    info = lap_info if lap else _NO_LAPLACIAN
+    lap_x, lap_y, lap_z, gather_x, gather_y, gather_z = (np.asarray(a, dtype=field.dtype) for a in info)
+    buf = _padded(field, r, periodic)
+    slabs = max(1, min(nb.get_num_threads(), nx))
+    rings = _buffer(("staged rings", periodic, r), (slabs, 2 * r + 1, DERIVATIVE_ROWS, ny + 2 * r, nz + 2 * r),
+                    field.dtype, zero=True)
+    scratch = _buffer("staged scratch", (slabs, LAPLACIAN_ROWS + 5, nz), field.dtype)
+    density = _buffer("density", (nx, ny, nz), field.dtype)
+    parts = np.zeros((nx, SLOTS))
+    user = user_der is not None
+    if user:
+        user_der = np.ascontiguousarray(user_der, dtype=field.dtype)
+    else:
+        user_der = np.zeros((1, 1, 1, 1), dtype=field.dtype)
+    _fused_staged(buf, r, narrow, tuple(float(t) for t in taps), fx, bx, fy, by, fz, bz, wx, wy, wz,
+                  np.asarray(coefs, dtype=np.float64), lap, lap_x, lap_y, lap_z, gather_x, gather_y, gather_z,
+                  1 if narrow else 3, bool(extra_gather or user), periodic, real(scale), gradient,
+                  store_density, rings, scratch, _buffer("staged logs", (slabs, 10, nz), np.float64), parts, density,
+                  user, user_der,
+                  out.reshape(nx, ny, 3 * nz) if gradient else _NO_GRADIENT.astype(real))
+    sums = scale * parts.sum(axis=0)
+    return sums, (normalisation * density.astype(np.float64) if store_density else None), out
