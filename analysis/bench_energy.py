@@ -5,8 +5,11 @@ nanoseconds per grid point, and the ratio to the floor set by reading the field 
 writing the gradient once (2 x 3 values per point) at the copy bandwidth measured in the
 same run with numpy.  Default model (dirichlet + skyrme_faddeev, second-order scheme) at
 N = 64, 96, 128 on both routes (the fused numba kernel and jax autodiff), the fourth- and
-sixth-order schemes at 128, and every built-in term alone at N = 64 (jax; the kernel covers only the
-default model's two terms).  The kernel's work arrays are a padded component-major copy
+sixth-order schemes at 128; then, on the default sixth-order scheme at N = 64, 96, 128,
+the default model plus each built-in correction (coupling 0.1), plus all seven, and plus
+user-file copies of log_quartic and sextic, on the numba routes (the staged kernel; jax
+pointwise for the user terms), with the ratio to the default kernel at the same N and
+precision ("/default"); and each correction on the jax autodiff route at N = 64.  The kernel's work arrays are a padded component-major copy
 of the field (3 values per site), the density (1) and, per thread, a ring of nine
 planes of the 18 derivatives (a few MB): with the gradient (3) about 7 values, 56 bytes
 per site in float64.
@@ -63,27 +66,76 @@ def time_evaluation(model: Model, field, repeats: int = 5) -> float:
     return statistics.median(times)
 
 
+USER_FILE = """
+import jax.numpy as jnp
+from solitons.terms import dirichlet_sum, h_squared
+
+def log_quartic(n, d, lap=None, c0=1.0, c1=0.1, scale=1.0, delta=1e-8):
+    h2 = h_squared(d)
+    m4 = scale**4
+    return h2 * (c0 + c1 * jnp.log((h2 + delta * m4) / m4))
+
+def sextic(n, d, lap=None):
+    return h_squared(d) * dirichlet_sum(d)
+"""
+
+CORRECTIONS = ("dirichlet_squared", "strain_squared", "potential", "laplacian_squared", "sextic", "chiral",
+               "log_quartic")
+
+
 def main() -> None:
+    import sys
+    import tempfile
+    from pathlib import Path
+
+    from solitons.userterms import load_user_term
+
     bandwidth = copy_bandwidth()
     print(f"copy bandwidth {bandwidth / 1e9:.1f} GB/s; jax {jax.__version__}, devices {jax.devices()}")
-    print("model               route   scheme    N  dtype     ms/eval   ns/point  ratio to bandwidth floor")
+    print("model                      route   scheme    N  dtype     ms/eval   ns/point  /default  /floor")
     default = (Term("dirichlet", BUILTIN_TERMS["dirichlet"]),
                Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"]))
-    cases = [("default", default, n, backend, "second") for n in (64, 96, 128) for backend in ("numba", "jax")]
-    cases += [("default", default, 128, backend, scheme) for scheme in ("fourth", "sixth")
+    user_path = Path(tempfile.mkdtemp()) / "user_terms.py"
+    user_path.write_text(USER_FILE)
+    user = {name: load_user_term(user_path, name)[0] for name in ("log_quartic", "sextic")}
+
+    def plus(name, kind=None, coupling=0.1):
+        return default + (Term(name, kind or BUILTIN_TERMS[name], coupling),)
+
+    everything = default + tuple(Term(k, BUILTIN_TERMS[k], 0.1) for k in CORRECTIONS)
+    cases = [("default", default, n, backend, "second", dtypes) for n in (64, 96, 128) for backend in ("numba", "jax")
+             for dtypes in [(jnp.float64, jnp.float32)]]
+    cases += [("default", default, 128, backend, scheme, (jnp.float64, jnp.float32)) for scheme in ("fourth", "sixth")
               for backend in ("numba", "jax")]
-    cases += [(name, (Term(name, kind),), 64, "jax", "second") for name, kind in BUILTIN_TERMS.items()]
-    for label, terms, points, backend, scheme in cases:
+    # corrections on the numba routes against the default kernel, default (sixth-order) scheme
+    for n in (64, 96, 128):
+        dtypes = (jnp.float64, jnp.float32) if n == 128 else (jnp.float64,)
+        cases.append(("default", default, n, "numba", "sixth", dtypes))
+        cases += [(f"+ {name}", plus(name), n, "numba", "sixth", dtypes) for name in CORRECTIONS]
+        cases.append(("+ all seven", everything, n, "numba", "sixth", dtypes))
+        cases += [(f"+ user {name}", plus(name, user[name]), n, "numba", "sixth", dtypes) for name in user]
+    # the jax autodiff route for each correction (64 only: slow)
+    cases += [(f"+ {name}", plus(name), 64, "jax", "sixth", (jnp.float64,)) for name in CORRECTIONS]
+    only = sys.argv[1:]  # optional filter: labels to run
+    reference = {}
+    for label, terms, points, backend, scheme, dtypes in cases:
+        if only and label not in only and label != "default":
+            continue
         grid = Grid.centred(points, 8.0 / points, "fixed")
         model = Model(terms, grid, scheme, backend)
         base = add_noise(hopf_map(grid, 1.0), grid, 0.01, 0)
-        for dtype in (jnp.float64, jnp.float32):
+        for dtype in dtypes:
             field = jnp.asarray(base, dtype=dtype)
             seconds = time_evaluation(model, field)
             per_point = seconds / grid.npoints
             floor = 6 * jnp.dtype(dtype).itemsize / bandwidth
-            print(f"{label:18s} {backend:6s}  {scheme:7s} {points:4d}  {jnp.dtype(dtype).name:8s} {1e3 * seconds:9.1f} "
-                  f"{1e9 * per_point:9.0f}  {per_point / floor:8.0f}", flush=True)
+            key = (points, scheme, jnp.dtype(dtype).name)
+            if label == "default" and backend == "numba":
+                reference[key] = per_point
+            ratio = f"{per_point / reference[key]:8.2f}" if key in reference else "       -"
+            route = "numba" if model.uses_kernel else "jax"
+            print(f"{label:26s} {route:6s}  {scheme:7s} {points:4d}  {jnp.dtype(dtype).name:8s} {1e3 * seconds:9.1f} "
+                  f"{1e9 * per_point:9.0f}  {ratio}  {per_point / floor:6.0f}", flush=True)
 
 
 if __name__ == "__main__":

@@ -7,7 +7,8 @@ the kernel through a host callback inside their jitted steps; L-BFGS calls it di
 and L-BFGS also with the coarse start (relax on spacing 2h, interpolate, finish on h) and
 without its shifted-Laplacian preconditioner (``plain``).
 
-    python analysis/bench_relax.py [--points 64] [--spacing 0.125] [--cases ...] > analysis/bench_relax.txt
+    python analysis/bench_relax.py [--points 64] [--spacing 0.125] [--scheme second] [--correction NAME:COUPLING]
+        [--cases ...] > analysis/bench_relax.txt
 """
 
 from __future__ import annotations
@@ -33,6 +34,9 @@ def main() -> None:
     parser.add_argument("--spacing", type=float, default=0.125)
     parser.add_argument("--max-steps", type=int, default=4000)
     parser.add_argument("--shift", type=float, default=None, help="preconditioner shift (default: the tool's)")
+    parser.add_argument("--scheme", default="second")
+    parser.add_argument("--correction", action="append", default=[],
+                        help="NAME:COUPLING, a built-in term added to the plain model (repeatable)")
     parser.add_argument("--cases", default=None,
                         help="comma-separated method:route[:coarse][:f32][:plain] list (f32: L-BFGS history "
                              "stored in float32; plain: L-BFGS without the preconditioner); the first is the baseline "
@@ -41,9 +45,11 @@ def main() -> None:
     grid = Grid.centred(args.points, args.spacing, "fixed")
     terms = (Term("dirichlet", BUILTIN_TERMS["dirichlet"]),
              Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"]))
+    terms += tuple(Term(c.split(":")[0], BUILTIN_TERMS[c.split(":")[0]], float(c.split(":")[1])) for c in args.correction)
     start_field = hopf_map(grid, 1.0)
     rule = StoppingRule(max_steps=args.max_steps, force_tol=1e-3, energy_tol=0.0)
-    print(f"grid {args.points}^3, h = {args.spacing}, fixed border, second-order scheme; "
+    print(f"model {' + '.join(f'{t.coupling:g} {t.name}' for t in terms)}")
+    print(f"grid {args.points}^3, h = {args.spacing}, fixed border, {args.scheme}-order scheme; "
           f"stop at max force < 1e-3 or {args.max_steps} steps; preconditioner shift "
           f"{'default' if args.shift is None else args.shift}")
     if args.cases:
@@ -58,27 +64,29 @@ def main() -> None:
     print(f"method            route  coarse hist precond status      steps  evals   wall_s  E               Q          "
           f"time/{cases[0][0]}-{cases[0][1]}")
     baseline = None
+    first_energy = None
     for method, backend, coarse, f32, plain in cases:
         preconditioner = "none" if plain else "laplacian"
         minimise_module.HISTORY_DTYPE = np.float32 if f32 else np.float64
-        model = Model(terms, grid, "second", backend)
+        model = Model(terms, grid, args.scheme, backend)
         start = time.perf_counter()
         field0, coarse_steps = start_field, 0
         if coarse:
             coarse_grid = grid.coarsened()
-            first = minimise(Model(terms, coarse_grid, "second", backend), hopf_map(coarse_grid, 1.0), method, rule,
+            first = minimise(Model(terms, coarse_grid, args.scheme, backend), hopf_map(coarse_grid, 1.0), method, rule,
                              preconditioner=preconditioner, preconditioner_shift=args.shift)
             field0, coarse_steps = interpolate_field(first.field, coarse_grid, grid), first.steps
         result = minimise(model, field0, method, rule, preconditioner=preconditioner,
                           preconditioner_shift=args.shift)
         wall = time.perf_counter() - start
         baseline = baseline or wall
+        first_energy = result.energy if first_energy is None else first_energy
         steps = f"{coarse_steps}+{result.steps}" if coarse else str(result.steps)
         shown = ("none" if plain else "lapl") if method == "lbfgs" else "-"
         print(f"{method:16s}  {backend:5s}  {'yes' if coarse else 'no':5s}  {'f32' if f32 else 'f64'}  {shown:6s}  "
               f"{result.status:10s} {steps:>8s} "
               f"{result.evaluations:6d} {wall:8.1f}  {result.energy:.10f}  {hopf_charge(result.field, grid):.6f}  "
-              f"{wall / baseline:6.3f}", flush=True)
+              f"{wall / baseline:6.3f}  dE vs first {result.energy - first_energy:+.1e}", flush=True)
 
 
 if __name__ == "__main__":

@@ -234,6 +234,40 @@ class Progress:
               f"{rate:.1f} steps/s  {elapsed:.0f} s", file=self.stream, flush=True)
 
 
+def describe_model(model) -> str:
+    """The terms with their couplings and constants, e.g. "1 dirichlet + 1 skyrme_faddeev +
+    0.2 log_quartic(c0=1, c1=0.1, scale=1, delta=1e-08)"."""
+    parts = []
+    for term in model.terms:
+        constants = term.parameter_values()
+        inside = ", ".join(f"{k}={v:g}" for k, v in constants.items())
+        label = term.name if term.name == term.kind.name else f"{term.name} [{term.kind.name}]"
+        parts.append(f"{term.coupling:g} {label}" + (f"({inside})" if inside else ""))
+    return " + ".join(parts)
+
+
+_WARM: set = set()
+
+
+def warm_up(model, field, stream) -> None:
+    """One evaluation before the relaxation, announced: the first one in a process loads
+    the route's compiled numba code from its disk cache, or compiles it (a minute or two
+    after an install or an upgrade) - without a word that pause looks like a hang."""
+    key = (type(model.route).__name__, np.asarray(field).dtype.str)
+    if key in _WARM:
+        return
+    if stream is not None:
+        print(f"  evaluation route: {model.route.name}; loading or compiling its code ...", end="",
+              file=stream, flush=True)
+    begin = time.perf_counter()
+    model.evaluate(np.asarray(field))
+    seconds = time.perf_counter() - begin
+    _WARM.add(key)
+    if stream is not None:
+        note = " (compiled; cached on disk for the next runs)" if seconds > 5.0 else ""
+        print(f" {seconds:.1f} s{note}", file=stream, flush=True)
+
+
 def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: bool = False,
           stream: TextIO | None = sys.stderr, initial_field: np.ndarray | None = None,
           symmetric_start: bool | None = None) -> dict:
@@ -288,6 +322,8 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
               f"box side {tuple(round(x, 4) for x in grid.side)}, {grid.boundary} boundary, "
               f"{spec.grid.scheme}-order scheme, method {relax_spec.method}",
               file=stream, flush=True)
+        print(f"  model: {describe_model(model)}", file=stream, flush=True)
+    warm_up(model, field0, stream)
     start = time.perf_counter()
     coarse = None
     if relax_spec.coarse_start and not resume and initial_field is None:

@@ -243,13 +243,15 @@ def _total(model: Model, field, spacing):
 
 
 @partial(jax.jit, static_argnums=0)
-def _energies_jit(model, field, spacing):
-    return term_energies(field, spacing, model.grid, model.terms, model.scheme)
+def _measure_jit(model, field, spacing):
+    """Per-term energies, the density, the total and its spacing derivative (one compile)."""
+    def total(spacing):
+        energies = term_energies(field, spacing, model.grid, model.terms, model.scheme)
+        return sum(energies), energies
 
-
-@partial(jax.jit, static_argnums=0)
-def _density_jit(model, field, spacing):
-    return sum(term_densities(field, spacing, model.grid, model.terms, model.scheme))
+    (value, energies), dspacing = jax.value_and_grad(total, has_aux=True)(spacing)
+    density = sum(term_densities(field, spacing, model.grid, model.terms, model.scheme))
+    return energies, density, value, dspacing
 
 
 @partial(jax.jit, static_argnums=0)
@@ -275,8 +277,3 @@ def _value_and_grad_jit(model, field, spacing):
     value, grad = jax.value_and_grad(_total, argnums=1)(model, field, spacing)
     mask = jnp.asarray(model.grid.free_mask(), dtype=field.dtype)
     return value, project_tangent(field, grad) * mask
-
-
-@partial(jax.jit, static_argnums=0)
-def _energy_spacing_grad_jit(model, field, spacing):
-    return jax.value_and_grad(_total, argnums=2)(model, field, spacing)

@@ -25,7 +25,8 @@ zeroes the held border.  `_fused` runs both in one sweep per thread-slab with a 
 nine derivative planes, so the derivatives stay in cache.  The energy of each x-plane
 is accumulated in float64 whatever the field's precision.
 
-Terms other than these two, and user terms, use the jax route.
+Every other model runs on the staged route of `solitons.staged`, which reuses `_site`
+and the gather functions below.
 """
 
 from __future__ import annotations

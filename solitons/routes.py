@@ -84,12 +84,10 @@ class Autodiff:
 
         model = self.model
         spacing = model.spacing_array()
-        values = en._energies_jit(model, field, spacing)
+        values, dens, total, dspacing = en._measure_jit(model, field, spacing)
         energies = {name: float(v) for name, v in zip(model.names, values)}
-        dens = np.asarray(en._density_jit(model, field, spacing)) if density else None
-        total, dspacing = en._energy_spacing_grad_jit(model, field, spacing)
         q = float(total) - np.asarray(spacing * dspacing)
-        return Measures(energies, dens, _virial(float(total), q))
+        return Measures(energies, np.asarray(dens) if density else None, _virial(float(total), q))
 
 
 class PlainKernel:

@@ -52,6 +52,7 @@ BAD_CASES = [
     ("[terms.mystery]\ncoupling = 1.0\n", [], "terms.mystery", "unknown term kind"),
     ("[terms.dirichlet]\ncoupling = \"one\"\n", [], "terms.dirichlet.coupling", "finite number"),
     ("[terms.dirichlet]\nweight = 1.0\n", [], "terms.dirichlet.weight", "unknown key"),
+    ("[terms.log_quartic]\ncoupling = 0.1\ndelta = 0.0\n", [], "terms.log_quartic.delta", "must be positive"),
     ("[relax]\nmethod = \"newton\"\n", [], "relax.method", "must be one of"),
     ("[relax]\nmax_steps = 0\n", [], "relax.max_steps", "at least 1"),
     ("", ["grid.points=x"], "grid.points", "integers"),

@@ -61,15 +61,6 @@ def test_kernel_float32_agrees_with_float64():
     assert np.abs(g32 - g64).max() < 1e-4 * np.abs(g64).max()
 
 
-def test_backend_choice():
-    grid = Grid.centred(12, 0.5, "fixed")
-    assert model_pair(grid, "second")[1].uses_kernel
-    mixed = (Term("dirichlet", BUILTIN_TERMS["dirichlet"]), Term("mass", BUILTIN_TERMS["potential"]))
-    assert not Model(mixed, grid).uses_kernel  # auto falls back to jax
-    with pytest.raises(ValueError, match="numba backend covers only"):
-        Model(mixed, grid, "second", "numba")
-
-
 def test_lbfgs_on_both_routes_reaches_the_same_minimum():
     """One minimiser, two evaluation routes: identical up to rounding in every step, so
     the final energies agree to 1e-9 (derived).  (At h = 0.3 the Q = 1 soliton unwinds on
