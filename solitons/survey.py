@@ -198,8 +198,10 @@ def resolution_text(spec) -> str:
 
 
 def markdown_table(rows: list[dict], spec) -> str:
-    lines = [f"Energy against charge ({resolution_text(spec)}). E in units where the Q = 1 minimum is "
-             "about 1.22; * marks the lowest energy per charge.", "",
+    model = " + ".join(f"{t.coupling:g} {t.name}" for t in spec.terms)
+    lines = [f"Energy against charge ({resolution_text(spec)}). Model: {model}. E in the normalisation of "
+             "Battye & Sutcliffe (the plain model's Q = 1 minimum is about 1.22); * marks the lowest energy "
+             "per charge.", "",
              "| Q | family | label found | E | E/Q^(3/4) | virial | measured Q | verdict | converged |",
              "|---|---|---|---|---|---|---|---|---|"]
     for r in rows:
