@@ -15,6 +15,7 @@ planes of the 18 derivatives (a few MB): with the gradient (3) about 7 values, 5
 per site in float64.
 
     python analysis/bench_energy.py > analysis/bench_energy.txt
+    python analysis/bench_energy.py --corrections > analysis/bench_corrections.txt
 """
 
 from __future__ import annotations
@@ -108,6 +109,7 @@ def main() -> None:
     cases += [("default", default, 128, backend, scheme, (jnp.float64, jnp.float32)) for scheme in ("fourth", "sixth")
               for backend in ("numba", "jax")]
     # corrections on the numba routes against the default kernel, default (sixth-order) scheme
+    start_of_corrections = len(cases)
     for n in (64, 96, 128):
         dtypes = (jnp.float64, jnp.float32) if n == 128 else (jnp.float64,)
         cases.append(("default", default, n, "numba", "sixth", dtypes))
@@ -116,7 +118,10 @@ def main() -> None:
         cases += [(f"+ user {name}", plus(name, user[name]), n, "numba", "sixth", dtypes) for name in user]
     # the jax autodiff route for each correction (64 only: slow)
     cases += [(f"+ {name}", plus(name), 64, "jax", "sixth", (jnp.float64,)) for name in CORRECTIONS]
-    only = sys.argv[1:]  # optional filter: labels to run
+    corrections_only = "--corrections" in sys.argv
+    if corrections_only:  # the rows of the staged route and their jax counterparts only
+        cases = cases[start_of_corrections:]
+    only = [a for a in sys.argv[1:] if not a.startswith("--")]  # optional filter: labels to run
     reference = {}
     for label, terms, points, backend, scheme, dtypes in cases:
         if only and label not in only and label != "default":

@@ -24,6 +24,20 @@ def skyrme_faddeev_model(grid: Grid, scheme: str = "second") -> Model:
     return Model(SKYRME_FADDEEV, grid, scheme)
 
 
+@pytest.fixture(scope="session", autouse=True)
+def numba_code_compiled_once():
+    """Compile the numba routes (or load them from numba's disk cache) once, in this
+    process, before any test starts worker processes or subprocesses: on a fresh install
+    several processes otherwise compile the same kernels at the same time."""
+    from solitons.initial import hopf_map
+    from solitons.minimise import StoppingRule, minimise
+
+    grid = Grid.centred(12, 0.5, "fixed")
+    field = hopf_map(grid, 1.0)
+    minimise(Model(SKYRME_FADDEEV, grid, "sixth"), field, "lbfgs", StoppingRule(max_steps=2, force_tol=0.0))
+    Model(SKYRME_FADDEEV + (Term("potential", BUILTIN_TERMS["potential"]),), grid, "sixth").evaluate(field)
+
+
 @pytest.fixture
 def rng():
     return np.random.default_rng(12345)

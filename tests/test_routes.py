@@ -66,6 +66,8 @@ def test_every_builtin_term_on_the_staged_route_equals_autodiff(scheme, kind):
     grid = grid_of(kind)
     field = add_noise(hopf_map(grid, 1.4), grid, 0.3, 7)
     fast = assert_routes_agree(BASE + corrections(), grid, scheme, field)
+    if scheme != "sixth" or kind != "fixed":
+        return  # float32 below: one case, slow (its first call compiles the route again, about a minute)
     # float32 evaluation: the same numbers to single precision (common practice: 1e-5 energy)
     e64, g64 = fast.evaluate(field)
     e32, g32 = fast.evaluate(field.astype(np.float32))
