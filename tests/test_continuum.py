@@ -78,6 +78,7 @@ def test_bad_continuum_table_names_key_and_value(tmp_path, table, problem):
     assert problem in str(info.value) and str(path) in str(info.value)
 
 
+@pytest.mark.slow  # 155 s in a cold CI run; test_survey_runs_carry_their_continuum_limits keeps the path
 def test_continuum_command_end_to_end(tmp_path):
     """Q = 1 on a stretched grid (box side 21.9) at h = 0.4, 0.3, 0.25: the levels keep one
     box, the charge stays 1, the energies fall towards the limit from above (the

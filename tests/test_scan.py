@@ -60,6 +60,7 @@ def test_scan_table_errors(tmp_path):
     assert read_scan_table(config)["values"] == [(0.0,), (0.5,), (1.0,)]
 
 
+@pytest.mark.slow  # 108 s in a cold CI run (three relaxations in a subprocess); run with -m slow
 def test_scan_command_prints_table(tmp_path):
     config = tmp_path / "scan.toml"
     config.write_text(SCAN.replace("CONT", "false").replace("[0.0, 0.5]", "[0.25]"))
