@@ -67,26 +67,12 @@ def time_evaluation(model: Model, field, repeats: int = 5) -> float:
     return statistics.median(times)
 
 
-USER_FILE = """
-import jax.numpy as jnp
-from solitons.terms import dirichlet_sum, h_squared
-
-def log_quartic(n, d, lap=None, c0=1.0, c1=0.1, scale=1.0, delta=1e-8):
-    h2 = h_squared(d)
-    m4 = scale**4
-    return h2 * (c0 + c1 * jnp.log((h2 + delta * m4) / m4))
-
-def sextic(n, d, lap=None):
-    return h_squared(d) * dirichlet_sum(d)
-"""
-
 CORRECTIONS = ("dirichlet_squared", "strain_squared", "potential", "laplacian_squared", "sextic", "chiral",
                "log_quartic")
 
 
 def main() -> None:
     import sys
-    import tempfile
     from pathlib import Path
 
     from solitons.userterms import load_user_term
@@ -96,9 +82,8 @@ def main() -> None:
     print("model                      route   scheme    N  dtype     ms/eval   ns/point  /default  /floor")
     default = (Term("dirichlet", BUILTIN_TERMS["dirichlet"]),
                Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"]))
-    user_path = Path(tempfile.mkdtemp()) / "user_terms.py"
-    user_path.write_text(USER_FILE)
-    user = {name: load_user_term(user_path, name)[0] for name in ("log_quartic", "sextic")}
+    copies = Path(__file__).parents[1] / "tests" / "user_copies.py"  # user-file copies of two built-in terms
+    user = {name: load_user_term(copies, name)[0] for name in ("log_quartic", "sextic")}
 
     def plus(name, kind=None, coupling=0.1):
         return default + (Term(name, kind or BUILTIN_TERMS[name], coupling),)

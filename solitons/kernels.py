@@ -695,6 +695,20 @@ def _wrap_plane_frame(plane, r):
                 plane[q, pj, pk] = plane[q, j, (pk - r) % nz + r]
 
 
+@nb.njit(cache=True)
+def gather_plane(buf, r, g, narrow, taps, ring, lo, w, out):
+    """w P(dE/dn) of x-plane g from the difference rows of the ring of derivative planes
+    (2 r + 1 planes, plane i at ring[i % (2 r + 1)]): the narrow or the tap gather."""
+    span = 2 * r + 1
+    if narrow:
+        _plane_gradient_narrow(buf, r, g, ring[(g - 1) % span], ring[g % span], ring[(g + 1) % span], lo, w, out)
+    else:
+        planes = (ring[(g - 4) % span], ring[(g - 3) % span], ring[(g - 2) % span], ring[(g - 1) % span],
+                  ring[g % span], ring[(g + 1) % span], ring[(g + 2) % span], ring[(g + 3) % span],
+                  ring[(g + 4) % span])
+        _plane_gradient(buf, r, g, taps, planes, lo, w, out)
+
+
 @nb.njit(parallel=True, cache=True)
 def _fused(buf, r, narrow, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, periodic, w, gradient,
            store_density, rings, parts, density, out):
@@ -734,14 +748,7 @@ def _fused(buf, r, narrow, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, c2, c4, per
                     _wrap_plane_frame(plane, r)
             g = ip - r
             if gradient and g >= i0 and lo <= g < nx - lo:
-                if narrow:
-                    _plane_gradient_narrow(buf, r, g, ring[(g - 1) % span], ring[g % span], ring[(g + 1) % span],
-                                           lo, w, out)
-                else:
-                    planes = (ring[(g - 4) % span], ring[(g - 3) % span], ring[(g - 2) % span],
-                              ring[(g - 1) % span], ring[g % span], ring[(g + 1) % span], ring[(g + 2) % span],
-                              ring[(g + 3) % span], ring[(g + 4) % span])
-                    _plane_gradient(buf, r, g, taps, planes, lo, w, out)
+                gather_plane(buf, r, g, narrow, taps, ring, lo, w, out)
 
 
 @nb.njit(parallel=True, cache=True)

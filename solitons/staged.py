@@ -42,7 +42,7 @@ from __future__ import annotations
 import numba as nb
 import numpy as np
 
-from solitons.kernels import _FAST, _plane_gradient, _plane_gradient_narrow, _site, _wrap_plane_frame
+from solitons.kernels import _FAST, _site, _wrap_plane_frame, gather_plane
 
 # correction kinds with a row function, in the order of their energy slots
 EXTRA_KINDS = ("dirichlet_squared", "strain_squared", "potential", "laplacian_squared", "sextic", "chiral",
@@ -763,8 +763,8 @@ def _fused_staged(buf, r, narrow, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, coef
             else:
                 i = ip % nx
                 sums = _plane_staged(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, coefs, lap, lap_x, lap_y,
-                                     lap_z, reach, plane, loc, wrow[:nz], spare[:nz], logs[t], density, store_density and owned,
-                                     user, user_der, extra_gather)
+                                     lap_z, reach, plane, loc, wrow[:nz], spare[:nz], logs[t], density,
+                                     store_density and owned, user, user_der, extra_gather)
                 if owned:
                     for q in range(SLOTS):
                         parts[i, q] = sums[q]
@@ -772,14 +772,7 @@ def _fused_staged(buf, r, narrow, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, coef
                     _wrap_plane_frame(plane, r)
             g = ip - r
             if gradient and g >= i0 and lo <= g < nx - lo:
-                if narrow:
-                    _plane_gradient_narrow(buf, r, g, ring[(g - 1) % span], ring[g % span], ring[(g + 1) % span],
-                                           lo, w, out)
-                else:
-                    planes = (ring[(g - 4) % span], ring[(g - 3) % span], ring[(g - 2) % span],
-                              ring[(g - 1) % span], ring[g % span], ring[(g + 1) % span], ring[(g + 2) % span],
-                              ring[(g + 3) % span], ring[(g + 4) % span])
-                    _plane_gradient(buf, r, g, taps, planes, lo, w, out)
+                gather_plane(buf, r, g, narrow, taps, ring, lo, w, out)
                 if extra_gather:
                     _plane_gradient_extra(buf, r, g, ring, span, lap, reach, gather_x, gather_y, gather_z, lo, w,
                                           acc, out)

@@ -5,6 +5,7 @@ relative; derived).  Plus checks that do not go through jax: a directional finit
 difference, a user-file copy of a built-in term, numpy's log."""
 
 import textwrap
+from pathlib import Path
 
 import jax.numpy as jnp
 import numpy as np
@@ -101,17 +102,9 @@ def test_staged_gradient_matches_a_finite_difference(rng):
     assert abs(numeric - analytic) < 1e-6 * abs(analytic)
 
 
-USER_FILE = '''
+COPIES = Path(__file__).with_name("user_copies.py")  # user-file copies of log_quartic and sextic
+TILTED = '''
 import jax.numpy as jnp
-from solitons.terms import dirichlet_sum, h_squared
-
-def log_quartic(n, d, lap=None, c0=1.0, c1=0.1, scale=1.0, delta=1e-8):
-    h2 = h_squared(d)
-    m4 = scale**4
-    return h2 * (c0 + c1 * jnp.log((h2 + delta * m4) / m4))
-
-def sextic(n, d, lap=None):
-    return h_squared(d) * dirichlet_sum(d)
 
 def tilted_laplacian(n, d, lap=None, b=0.3):
     return b * (1.0 - n[..., 0]) + 0.1 * jnp.sum(lap * lap, axis=-1)
@@ -120,10 +113,11 @@ def tilted_laplacian(n, d, lap=None, b=0.3):
 
 @pytest.fixture(scope="module")
 def user_kinds(tmp_path_factory):
-    path = tmp_path_factory.mktemp("user") / "terms.py"
-    path.write_text(textwrap.dedent(USER_FILE))
-    return {name: load_user_term(path, name, laplacian=(name == "tilted_laplacian"))[0]
-            for name in ("log_quartic", "sextic", "tilted_laplacian")}
+    path = tmp_path_factory.mktemp("user") / "tilted.py"
+    path.write_text(textwrap.dedent(TILTED))
+    kinds = {name: load_user_term(COPIES, name)[0] for name in ("log_quartic", "sextic")}
+    kinds["tilted_laplacian"] = load_user_term(path, "tilted_laplacian", laplacian=True)[0]
+    return kinds
 
 
 def test_user_copies_equal_the_builtin_terms(user_kinds):
