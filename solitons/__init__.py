@@ -1,7 +1,23 @@
 """solitons: relax knotted solitons of corrected sigma models on a 3D lattice."""
 
-import jax
+import signal as _signal
+import threading as _threading
 
-jax.config.update("jax_enable_x64", True)
+# Importing jax swallows a Ctrl-C that arrives meanwhile (measured: a SIGINT 0.1-0.6 s
+# into `import jax` neither interrupted the import nor anything after it).  Signals that
+# arrive during the import are recorded here instead; the command
+# (solitons.interrupts.handling) acts on them as soon as it starts.
+EARLY_SIGNALS: list[int] = []
+_previous = {}
+if _threading.current_thread() is _threading.main_thread():
+    _previous = {s: _signal.signal(s, lambda signum, _frame: EARLY_SIGNALS.append(signum))
+                 for s in (_signal.SIGINT, _signal.SIGTERM)}
+try:
+    import jax
+
+    jax.config.update("jax_enable_x64", True)
+finally:
+    for _s, _h in _previous.items():
+        _signal.signal(_s, _h)
 
 __version__ = "0.1.0"

@@ -28,9 +28,10 @@ import numpy as np
 
 from solitons import catalogue
 from solitons.config import ConfigError, _is_real, load, read_campaign_table
-from solitons.driver import RESULT, SUMMARY, RunError, config_hash, relax
+from solitons.driver import RESULT, SUMMARY, RunError, relax, run_hash
 from solitons.engine import make_task, model_text, run_tasks
 from solitons.io import read_result
+from solitons.outcomes import Outcome
 
 SCAN_KEYS = ("parameter", "values", "start", "stop", "num", "continuation", "continuum")
 
@@ -94,16 +95,16 @@ def scan_specs(path, overrides=()):
 
 
 LEGEND = {
-    "stable": ("o", "tab:green", "stable soliton"),
-    "collapsed": ("v", "tab:red", "shrank to the lattice"),
-    "under-resolved": ("1", "tab:red", "smaller than the lattice resolves"),
-    "spread": ("^", "tab:orange", "grew to fill the box"),
-    "box too small": ("2", "tab:orange", "converged, touches the box"),
-    "unwound": ("x", "tab:purple", "charge lost"),
-    "unbounded": ("D", "black", "energy not bounded below"),
-    "saddle": ("s", "tab:blue", "saddle (negative mode)"),
-    "not converged": ("P", "tab:gray", "not converged"),
-    "non-finite": ("*", "tab:brown", "non-finite energy"),
+    Outcome.STABLE: ("o", "tab:green", "stable soliton"),
+    Outcome.COLLAPSED: ("v", "tab:red", "shrank to the lattice"),
+    Outcome.UNDER_RESOLVED: ("1", "tab:red", "smaller than the lattice resolves"),
+    Outcome.SPREAD: ("^", "tab:orange", "grew to fill the box"),
+    Outcome.BOX_TOO_SMALL: ("2", "tab:orange", "converged, touches the box"),
+    Outcome.UNWOUND: ("x", "tab:purple", "charge lost"),
+    Outcome.UNBOUNDED: ("D", "black", "energy not bounded below"),
+    Outcome.SADDLE: ("s", "tab:blue", "saddle (negative mode)"),
+    Outcome.NOT_CONVERGED: ("P", "tab:gray", "not converged"),
+    Outcome.NON_FINITE: ("*", "tab:brown", "non-finite energy"),
 }
 
 
@@ -111,7 +112,7 @@ def _finished_summary(point_dir: Path, spec) -> dict | None:
     summary_path = point_dir / SUMMARY
     if summary_path.exists() and (point_dir / RESULT).exists():
         saved = json.loads(summary_path.read_text())
-        if saved.get("config_hash") == config_hash(spec.text):
+        if saved.get("config_hash") == run_hash(spec):
             return saved
     return None
 
@@ -143,12 +144,13 @@ def run_scan(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr, fi
                 summaries[index] = relax(spec, out / name, overwrite=True, stream=None,
                                          initial_field=previous_field)
                 catalogue.record(out / catalogue.CATALOGUE, {
-                    "task": name, "config_hash": config_hash(spec.text), "model": model_text(spec),
+                    "task": name, "config_hash": run_hash(spec), "model": model_text(spec),
+                    "provenance": json.dumps(summaries[index]["provenance"]),
                     "family": spec.initial.description, "expected_charge": spec.initial.expected_charge,
                     "hopf_charge": summaries[index]["hopf_charge"], "energy": summaries[index]["energy"],
                     "label": summaries[index]["label"], "verdict": summaries[index]["verdict"],
                     "converged": int(summaries[index]["converged"]), "status": "finished",
-                    "path": str(out / name), "wall_seconds": time.perf_counter() - start,
+                    "path": name, "wall_seconds": time.perf_counter() - start,
                     "finished_at": time.time()})
             previous_field = read_result(out / name / RESULT)["field"]
             bar.update(1)

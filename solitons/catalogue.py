@@ -28,7 +28,8 @@ COLUMNS = (
     ("converged", "INTEGER"),
     ("status", "TEXT"),             # finished | failed
     ("error", "TEXT"),
-    ("path", "TEXT"),
+    ("path", "TEXT"),               # the run's directory, relative to the catalogue's
+    ("provenance", "TEXT"),         # JSON, as in result.h5 (versions, user-term files with content)
     ("wall_seconds", "REAL"),
     ("worker", "TEXT"),
     ("finished_at", "REAL"),        # unix time
@@ -45,6 +46,10 @@ def connect(path: str | Path, timeout: float = 120.0) -> sqlite3.Connection:
     _retry(lambda: connection.execute("PRAGMA journal_mode = WAL"))
     columns = ", ".join(f"{name} {kind}" for name, kind in COLUMNS)
     _retry(lambda: connection.execute(f"CREATE TABLE IF NOT EXISTS runs ({columns})"))
+    present = {row[1] for row in connection.execute("PRAGMA table_info(runs)")}
+    for name, kind in COLUMNS:  # a catalogue written by an older version: add the new columns
+        if name not in present:
+            _retry(lambda: connection.execute(f"ALTER TABLE runs ADD COLUMN {name} {kind}"))
     return connection
 
 

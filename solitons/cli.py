@@ -3,7 +3,8 @@ exit codes.
 
 Exit codes: 0 converged and stable; 1 finished without meeting the stopping rule (or
 charge lost); 2 bad input (configuration, arguments, files, output directory); 3 energy
-became non-finite; 130 interrupted (Ctrl-C; the last checkpoint stays for --resume).
+became non-finite; 130 interrupted by Ctrl-C (SIGINT), 143 by SIGTERM: the run stops after
+its current step and writes a checkpoint for --resume (solitons.interrupts).
 """
 
 from __future__ import annotations
@@ -13,34 +14,35 @@ import sys
 from importlib import resources
 from pathlib import Path
 
-EXIT_OK, EXIT_UNCONVERGED, EXIT_INPUT, EXIT_NON_FINITE, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
+EXIT_OK, EXIT_UNCONVERGED, EXIT_INPUT, EXIT_NON_FINITE = 0, 1, 2, 3  # interrupted: 128 + signal
 
 
 def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
-        prog="solitons",
+        prog="solitons", allow_abbrev=False,
         description="Relax knotted solitons of corrected sigma models on a 3D lattice.",
     )
     sub = parser.add_subparsers(dest="command", required=True)
-    relax = sub.add_parser("relax", help="relax one configuration described by a TOML file")
+    relax = sub.add_parser("relax", allow_abbrev=False, help="relax one configuration described by a TOML file")
     relax.add_argument("config", help="TOML configuration file")
     relax.add_argument("--out", help="output directory (default runs/<config name>)")
-    demo = sub.add_parser("demo", help="relax the built-in example: the charge-1 Hopf soliton")
+    demo = sub.add_parser("demo", allow_abbrev=False, help="relax the built-in example: the charge-1 Hopf soliton")
     demo.add_argument("--out", default="runs/demo", help="output directory (default runs/demo)")
     for p in (relax, demo):
         p.add_argument("overrides", nargs="*", metavar="dotted.key=value",
                        help="override configuration entries, e.g. grid.points=48 (anywhere "
                             "on the line)")
         p.add_argument("--resume", action="store_true", help="continue from DIR/checkpoint.h5")
-        p.add_argument("--overwrite", action="store_true", help="replace an existing result")
+        p.add_argument("--overwrite", action="store_true",
+                       help="replace an existing result (and delete an unfinished run's checkpoint)")
         p.add_argument("--quiet", action="store_true", help="no progress lines on stderr")
         p.add_argument("--no-figures", dest="figures", action="store_false",
                        help="skip the PNG figures at the end of the run")
-    scan = sub.add_parser("scan", help="relax a configuration over a range of couplings ([scan] table)")
+    scan = sub.add_parser("scan", allow_abbrev=False, help="relax a configuration over a range of couplings ([scan] table)")
     scan.add_argument("config", help="TOML configuration with a [scan] table")
     scan.add_argument("--out", help="output directory (default runs/<config name>)")
     scan.add_argument("overrides", nargs="*", metavar="dotted.key=value")
-    survey = sub.add_parser("survey", help="energy against Hopf charge over families of initial data "
+    survey = sub.add_parser("survey", allow_abbrev=False, help="energy against Hopf charge over families of initial data "
                                            "([survey] table)")
     survey.add_argument("config", help="TOML configuration with a [survey] table")
     survey.add_argument("--out", help="output directory (default runs/<config name>)")
@@ -54,18 +56,18 @@ def _parser() -> argparse.ArgumentParser:
                        help="a running dask scheduler (tcp://host:port); default: a local cluster "
                             "with one single-threaded worker per core; 'inline' runs in this process")
         p.add_argument("--workers", type=int, default=None, help="local cluster size (default: cores)")
-    continuum = sub.add_parser("continuum", help="relax one configuration at three or more spacings "
+    continuum = sub.add_parser("continuum", allow_abbrev=False, help="relax one configuration at three or more spacings "
                                "([continuum] table) and extrapolate to h -> 0")
     continuum.add_argument("config", help="TOML configuration with a [continuum] table")
     continuum.add_argument("--out", help="output directory (default runs/<config name>)")
     continuum.add_argument("overrides", nargs="*", metavar="dotted.key=value")
     continuum.add_argument("--quiet", action="store_true", help="no progress lines on stderr")
-    show = sub.add_parser("show", help="write PNG figures of a result file")
+    show = sub.add_parser("show", allow_abbrev=False, help="write PNG figures of a result file")
     show.add_argument("result", help="a result.h5 written by relax")
     show.add_argument("--out", help="directory for the figures (default: next to the result)")
     show.add_argument("--level", type=float, default=None,
                       help="isosurface level of n3 (default -0.8, a tube around n = -e3)")
-    gallery = sub.add_parser("gallery", help="one figure with the isosurface of every result")
+    gallery = sub.add_parser("gallery", allow_abbrev=False, help="one figure with the isosurface of every result")
     gallery.add_argument("results", nargs="+", help="result.h5 files")
     gallery.add_argument("--out", required=True, help="PNG file to write")
     gallery.add_argument("--level", type=float, default=None)
@@ -76,16 +78,24 @@ def demo_config_text() -> str:
     return resources.files("solitons").joinpath("examples/demo.toml").read_text()
 
 
-def _figures(out: Path, level=None, stream=sys.stdout):
+def _figures(out: Path, level=None, stream=None):
     from solitons.io import read_result
     from solitons.plots import DEFAULT_LEVEL, write_figures
 
     paths = write_figures(read_result(out / "result.h5"), out,
                           DEFAULT_LEVEL if level is None else level)
-    print("figures       " + "  ".join(str(p) for p in paths), file=stream)
+    print("figures       " + "  ".join(str(p) for p in paths), file=stream or sys.stdout)
 
 
 def main(argv: list[str] | None = None) -> int:
+    try:
+        return _main(argv)
+    except KeyboardInterrupt:  # before the handler was installed or after it was removed
+        print("solitons: interrupted by SIGINT (Ctrl-C); nothing was written", file=sys.stderr, flush=True)
+        return 128 + 2
+
+
+def _main(argv: list[str] | None) -> int:
     parser = _parser()
     args, extra = parser.parse_known_args(argv)
     if args.command in ("relax", "demo", "scan", "survey", "continuum"):
@@ -95,10 +105,52 @@ def main(argv: list[str] | None = None) -> int:
         args.overrides = list(args.overrides) + extra
     elif extra:
         parser.error(f"unrecognised arguments: {' '.join(extra)}")
-    # Imports after parsing so that --help answers without loading jax.
+    from solitons import interrupts
+
+    try:
+        with interrupts.handling():
+            return _run(args)
+    except interrupts.Interrupted as stop:
+        if getattr(stop, "campaign", None) is not None:
+            hint = (f"; the runs that finished are kept in {stop.campaign}: rerun the same command to go on "
+                    "(finished runs are skipped, a run stopped midway resumes from its checkpoint if it wrote one)")
+        elif stop.checkpoint is not None and Path(stop.checkpoint).exists():
+            hint = (f" after step {stop.step}; its state is in {stop.checkpoint}: rerun the same command "
+                    "with --resume to continue exactly where it stopped")
+        else:
+            hint = "; no checkpoint was written (the relaxation had not started)"
+        print(f"solitons: interrupted by {stop}{hint}", file=sys.stderr, flush=True)
+        return stop.exit_code
+
+
+def _run(args) -> int:
+    from solitons import interrupts
+
+    # Imports after parsing so that --help answers without loading numba; a signal during
+    # them is recorded and acted on after (some imports swallow a KeyboardInterrupt).
+    with interrupts.deferred():
+        import solitons.campaigns  # noqa: F401  (the modules every command needs)
+        import solitons.driver  # noqa: F401
+    interrupts.check()
+
+    try:
+        return _command(args)
+    except interrupts.Interrupted as stop:
+        stop.campaign = _campaign_dir(args)
+        raise
+
+
+def _campaign_dir(args):
+    if args.command in ("scan", "survey", "continuum"):
+        return Path(args.out) if args.out else Path("runs") / Path(args.config).stem
+    return None
+
+
+def _command(args) -> int:
     from solitons.config import ConfigError, load
     from solitons.driver import RunError, relax, report
-    from solitons.io import ResultFileError
+    from solitons.io import OutputError, ResultFileError, check_output_dir
+    from solitons.outcomes import Outcome
     from solitons.userterms import UserTermError
 
     try:
@@ -128,7 +180,7 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "scan":
             from solitons.campaigns import format_table, read_scan_table, run_scan
 
-            out = Path(args.out) if args.out else Path("runs") / Path(args.config).stem
+            out = check_output_dir(Path(args.out) if args.out else Path("runs") / Path(args.config).stem)
             rows = run_scan(args.config, out, args.overrides, stream=None if args.quiet else sys.stderr,
                             figures=args.figures, scheduler=args.scheduler, workers=args.workers)
             key = read_scan_table(args.config)["keys"][0]
@@ -138,7 +190,7 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "survey":
             from solitons.survey import run_survey, summary_lines
 
-            out = Path(args.out) if args.out else Path("runs") / Path(args.config).stem
+            out = check_output_dir(Path(args.out) if args.out else Path("runs") / Path(args.config).stem)
             rows = run_survey(args.config, out, args.overrides, scheduler=args.scheduler, workers=args.workers,
                               stream=None if args.quiet else sys.stderr, figure=args.figures,
                               table_only=args.table_only)
@@ -150,7 +202,7 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "continuum":
             from solitons.continuum import format_markdown, run_continuum
 
-            out = Path(args.out) if args.out else Path("runs") / Path(args.config).stem
+            out = check_output_dir(Path(args.out) if args.out else Path("runs") / Path(args.config).stem)
             report_ = run_continuum(args.config, out, args.overrides, stream=None if args.quiet else sys.stderr)
             print(format_markdown(report_), end="")
             print(f"files         {out / 'continuum.md'}  {out / 'continuum.csv'}  {out / 'continuum.json'}  "
@@ -158,27 +210,19 @@ def main(argv: list[str] | None = None) -> int:
             return EXIT_UNCONVERGED if report_["warnings"] else EXIT_OK
         if args.command == "demo":
             spec = load(None, args.overrides, text=demo_config_text())
-            out = Path(args.out)
+            out = check_output_dir(args.out)
         else:
             spec = load(args.config, args.overrides)
-            out = Path(args.out) if args.out else Path("runs") / Path(args.config).stem
-        try:
-            summary = relax(spec, out, resume=args.resume,
-                            overwrite=args.overwrite or args.command == "demo",
-                            stream=None if args.quiet else sys.stderr)
-        except KeyboardInterrupt:
-            checkpoint = out / "checkpoint.h5"
-            hint = (f"; the last checkpoint is {checkpoint}: rerun with --resume to continue"
-                    if checkpoint.exists() else "; no checkpoint was written yet")
-            print(f"solitons: interrupted{hint}", file=sys.stderr)
-            return EXIT_INTERRUPTED
-    except (ConfigError, RunError, ResultFileError, UserTermError) as error:
+            out = check_output_dir(Path(args.out) if args.out else Path("runs") / Path(args.config).stem)
+        summary = relax(spec, out, resume=args.resume, overwrite=args.overwrite,
+                        stream=None if args.quiet else sys.stderr)
+    except (ConfigError, RunError, ResultFileError, UserTermError, OutputError) as error:
         print(f"solitons: error: {error}", file=sys.stderr)
         return EXIT_INPUT
     report(summary, out)
     if args.figures:
         _figures(out)
-    if summary["status"] == "non_finite":
+    if summary["status"] == Outcome.NON_FINITE:
         return EXIT_NON_FINITE
     if summary["verdict"] != "stable":
         return EXIT_UNCONVERGED

@@ -33,7 +33,7 @@ from typing import TextIO
 import numpy as np
 
 from solitons.config import ConfigError, RunSpec, load, read_campaign_table
-from solitons.driver import RESULT, SUMMARY, config_hash, make_grid, relax
+from solitons.driver import RESULT, SUMMARY, make_grid, relax, run_hash
 from solitons.extrapolation import fit_power_limit
 from solitons.grid import STENCILS
 from solitons.initial import interpolate_field
@@ -80,7 +80,7 @@ def _finished(out: Path, spec: RunSpec) -> dict | None:
     if not path.exists():
         return None
     summary = json.loads(path.read_text())
-    return summary if summary.get("config_hash") == config_hash(spec.text) else None
+    return summary if summary.get("config_hash") == run_hash(spec) else None
 
 
 def run_continuum(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr, text: str | None = None,
@@ -125,11 +125,11 @@ def run_continuum(path, out_dir, overrides=(), stream: TextIO | None = sys.stder
     report["wall_seconds"] = time.perf_counter() - start
     write_outputs(report, out)
     if publish:
-        publish_finest(report, out)
+        publish_finest(report, out, run_hash(base))
     return report
 
 
-def publish_finest(report: dict, out: Path) -> None:
+def publish_finest(report: dict, out: Path, point_hash: str) -> None:
     finest = Path(report["levels"][-1]["path"])
     summary = json.loads((finest / SUMMARY).read_text())
     summary["continuum"] = {"order": report["order"], "warnings": report["warnings"],
@@ -138,7 +138,7 @@ def publish_finest(report: dict, out: Path) -> None:
                             **{f"{name}_limit": fit["limit"] for name, fit in report["fits"].items()},
                             **{f"{name}_error": fit["error"] for name, fit in report["fits"].items()}}
     summary["warnings"] = list(summary["warnings"]) + report["warnings"]
-    summary["config_hash"] = config_hash(report["config"])  # the point's, so that a rerun skips it
+    summary["config_hash"] = point_hash  # the point's, so that a rerun skips it
     tmp = out / f".{RESULT}.tmp"
     shutil.copyfile(finest / RESULT, tmp)
     tmp.replace(out / RESULT)

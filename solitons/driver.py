@@ -3,8 +3,12 @@
 
 from __future__ import annotations
 
+import contextlib
+import datetime
+import functools
 import hashlib
 import json
+import math
 import sys
 import time
 import tomllib
@@ -13,15 +17,25 @@ from typing import TextIO
 
 import numpy as np
 
-from solitons import __version__
+from solitons import __version__, interrupts
 from solitons.config import USER_KIND, RunSpec
 from solitons.diagnose import assess, snapshot
 from solitons.energy import Model, kernel_couplings
 from solitons.grid import Grid
 from solitons.initial import add_noise, initial_field, interpolate_field
-from solitons.io import read_checkpoint, write_checkpoint, write_json, write_result, write_xdmf
+from solitons.io import (
+    OutputError,
+    prepare_output_dir,
+    read_checkpoint,
+    stale_temporaries,
+    write_checkpoint,
+    write_json,
+    write_result,
+    write_xdmf,
+)
 from solitons.knots import solution_label
 from solitons.minimise import History, StoppingRule, minimise
+from solitons.outcomes import Outcome
 from solitons.stability import lowest_modes, probe_density
 from solitons.terms import BUILTIN_TERMS, Term
 from solitons.topology import hopf_charge
@@ -102,12 +116,14 @@ def coarse_stage(spec: RunSpec, grid: Grid, model: Model, rule: StoppingRule, st
     start = time.perf_counter()
     result = minimise(coarse_model, make_initial_field(spec, coarse_grid), spec.relax.method, rule,
                       preconditioner=spec.relax.preconditioner, preconditioner_shift=spec.relax.preconditioner_shift)
+    if result.status == Outcome.INTERRUPTED:  # nothing of the fine run exists yet to checkpoint
+        raise interrupts.Interrupted(interrupts.requested(), None, 0)
     charge = hopf_charge(result.field, coarse_grid)
     expected = spec.initial.expected_charge
     report = {"used": False, "grid": list(coarse_grid.shape), "spacing": list(coarse_grid.spacing),
               "steps": result.steps, "evaluations": result.evaluations, "status": result.status,
               "energy": result.energy, "hopf_charge": charge, "wall_seconds": time.perf_counter() - start}
-    if result.status == "non_finite":
+    if result.status == Outcome.NON_FINITE:
         report["reason"] = "the energy became non-finite on the coarse grid"
         return report, None
     if abs(charge - expected) > 0.1 * max(1, abs(expected)):
@@ -142,7 +158,11 @@ def saddle_check(model: Model, field: np.ndarray, energy: float, rule: StoppingR
                         preconditioner_shift=spec.relax.preconditioner_shift)
 
     reference = relaxed(field)
+    if reference.status == Outcome.INTERRUPTED:
+        return None
     copy = relaxed(add_noise(field, model.grid, noise, spec.initial.seed + 1))
+    if copy.status == Outcome.INTERRUPTED:
+        return None
     record = {"noise": noise, "energy": float(energy), "reference_energy": float(reference.energy),
               "perturbed_energy": float(copy.energy),
               "perturbed_hopf_charge": float(hopf_charge(copy.field, model.grid)),
@@ -185,6 +205,60 @@ def monitor_values(model: Model, field) -> dict:
 
 def config_hash(text: str) -> str:
     return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+def user_files(spec: RunSpec) -> list[dict]:
+    """The user-term files of a run: term name, path, SHA-256 and content (text)."""
+    files = []
+    for term in spec.terms:
+        if term.kind == USER_KIND:
+            data = Path(term.file).read_bytes()
+            files.append({"term": term.name, "file": term.file, "sha256": hashlib.sha256(data).hexdigest(),
+                          "content": data.decode("utf-8", errors="replace")})
+    return files
+
+
+def run_hash(spec: RunSpec) -> str:
+    """What decides a run's numbers: the merged configuration and the content of every
+    user-term file it loads.  Campaigns skip a finished run only when this is unchanged."""
+    digest = hashlib.sha256(spec.text.encode())
+    for entry in user_files(spec):
+        digest.update(entry["sha256"].encode())
+    return digest.hexdigest()[:16]
+
+
+@functools.lru_cache(maxsize=1)
+def _git_commit() -> dict:
+    """The commit of the package's source tree when it is a git checkout (an editable
+    install), with whether tracked files differ from it; {} otherwise."""
+    import subprocess
+
+    where = Path(__file__).resolve().parent
+    try:
+        commit = subprocess.run(["git", "-C", str(where), "rev-parse", "HEAD"], capture_output=True, text=True,
+                                timeout=10)
+        if commit.returncode != 0:
+            return {}
+        dirty = subprocess.run(["git", "-C", str(where), "status", "--porcelain", "--untracked-files=no"],
+                               capture_output=True, text=True, timeout=10)
+        return {"git_commit": commit.stdout.strip(), "git_dirty": bool(dirty.stdout.strip())}
+    except (OSError, subprocess.SubprocessError):
+        return {}
+
+
+def provenance(spec: RunSpec) -> dict:
+    """Where a result's numbers come from: package version (and git commit), Python and
+    library versions, and every user-term file with its hash and content."""
+    from importlib import metadata
+
+    versions = {}
+    for name in ("jax", "jaxlib", "numba", "numpy", "scipy", "h5py"):
+        try:
+            versions[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            versions[name] = None
+    return {"solitons": __version__, **_git_commit(), "python": sys.version.split()[0], "libraries": versions,
+            "user_terms": user_files(spec)}
 
 
 def physics_hash(text: str) -> str:
@@ -268,6 +342,56 @@ def warm_up(model, field, stream) -> None:
         print(f" {seconds:.1f} s{note}", file=stream, flush=True)
 
 
+def _utc_now() -> str:
+    return datetime.datetime.now(datetime.UTC).isoformat(timespec="seconds")
+
+
+def first_non_finite(model: Model, field) -> str:
+    """Where a field's energy is first non-finite: the term and a site (index and
+    position), from the per-term densities of the reference (jax) expression."""
+    from solitons.energy import term_densities
+
+    field = np.asarray(field)
+    if not np.all(np.isfinite(field)):
+        site = tuple(int(i) for i in np.argwhere(~np.all(np.isfinite(field), axis=-1))[0])
+        return f"the field itself is non-finite at site {site}"
+    densities = term_densities(field, model.spacing_array(), model.grid, model.terms, model.scheme)
+    for term, density in zip(model.terms, densities):
+        bad = np.argwhere(~np.isfinite(np.asarray(density)))
+        if len(bad):
+            site = tuple(int(i) for i in bad[0])
+            position = model.grid.index_to_position(np.asarray(site, dtype=float))
+            return (f"term {term.name!r} is non-finite at {len(bad)} sites, first at site {site} "
+                    f"(x, y, z = {', '.join(f'{v:.4g}' for v in position)}), field there "
+                    f"n = ({', '.join(f'{v:.4g}' for v in field[site])})")
+    return "every term's density is finite, but the total or its gradient is not (an overflow in the sum)"
+
+
+def _check_finite_start(model: Model, field) -> None:
+    energy, gradient = model.evaluate(np.asarray(field))
+    if math.isfinite(energy) and np.all(np.isfinite(gradient)):
+        return
+    raise RunError(f"the energy of the initial data is already non-finite (E = {energy}): "
+                   f"{first_non_finite(model, field)}; nothing was relaxed or written")
+
+
+@contextlib.contextmanager
+def _naming_checkpoint(path: Path):
+    """A second signal raises at once, from inside a step: name the last periodic
+    checkpoint, if there is one, in the exception."""
+    try:
+        yield
+    except interrupts.Interrupted as stop:
+        if stop.checkpoint is None and path.exists():
+            stop.checkpoint = path
+        raise
+
+
+def _segment(started: str, from_step: int, to_step: int, evaluations: int, seconds: float, ended: str) -> dict:
+    return {"started": started, "from_step": int(from_step), "to_step": int(to_step),
+            "evaluations": int(evaluations), "wall_seconds": float(seconds), "ended": str(ended)}
+
+
 def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: bool = False,
           stream: TextIO | None = sys.stderr, initial_field: np.ndarray | None = None,
           symmetric_start: bool | None = None) -> dict:
@@ -276,13 +400,23 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     ``initial_field`` replaces the configured initial data (continuation in scans).
     ``symmetric_start``: whether the start can be symmetric, so that a would-be stable
     state needs the saddle check (default: noise-free configured initial data; a caller
-    that hands over a field derived from such data, as the continuum levels do, says so)."""
+    that hands over a field derived from such data, as the continuum levels do, says so).
+
+    Raises RunError (and writes nothing) when the run cannot start: output in the way,
+    memory, a checkpoint of another configuration, non-finite initial data.  A SIGINT or
+    SIGTERM (see solitons.interrupts) stops the relaxation after its current step, writes
+    DIR/checkpoint.h5 with the minimiser's full state and raises `Interrupted`; resuming
+    from it takes the same steps as a run never stopped.  The summary records every
+    segment of a resumed run (``segments``); ``iterations``, ``evaluations`` and
+    ``wall_seconds`` count all of them."""
     out = Path(out_dir)
     grid = make_grid(spec)
-    model = make_model(spec, grid)
     check_memory(grid)
+    model = make_model(spec, grid)
     checkpoint_path = out / CHECKPOINT
-    history, start_step = None, 0
+    history, start_step, saved_state, segments = None, 0, None, []
+    if out.exists() and not out.is_dir():
+        raise OutputError(f"{out}: exists and is not a directory; name a directory for the output")
     if resume:
         if not checkpoint_path.exists():
             raise RunError(f"{checkpoint_path}: no checkpoint to resume from")
@@ -293,18 +427,41 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         field0 = saved["field"]
         history = History.from_arrays(saved["history"])
         start_step = saved["step"]
+        saved_state = saved["state"]
+        segments = list(saved["record"].get("segments", []))
+        if segments and segments[-1]["ended"] == "running":  # a periodic checkpoint, then the process died
+            segments[-1]["ended"] = "killed (steps after this checkpoint were redone)"
+        if saved_state is not None and saved_state.get("method") != spec.relax.method:
+            saved_state = None
     else:
         if (out / RESULT).exists() and not overwrite:
             raise RunError(f"{out / RESULT} exists; pass --overwrite to replace it or --resume")
+        if checkpoint_path.exists() and not overwrite:
+            raise RunError(f"{checkpoint_path} holds an unfinished run; pass --resume to continue it or "
+                           "--overwrite to start again (which deletes it)")
         field0 = make_initial_field(spec, grid) if initial_field is None else np.asarray(initial_field)
         if field0.shape != grid.shape + (3,):
             raise RunError(f"initial field of shape {field0.shape} does not fit the grid {grid.shape}")
-    out.mkdir(parents=True, exist_ok=True)
+    prepare_output_dir(out)
+    for stale in stale_temporaries(out):  # left by a killed process: never a complete file
+        stale.unlink(missing_ok=True)
+        if stream is not None:
+            print(f"  removed {stale}, a half-written file left by an interrupted process", file=stream)
+    if not resume:
+        checkpoint_path.unlink(missing_ok=True)  # --overwrite: the old run's checkpoint goes too
     expected = spec.initial.expected_charge
     initial_charge = hopf_charge(field0, grid)
+    segment_started, segment_clock = _utc_now(), [time.perf_counter()]
 
-    def checkpoint(field, step, hist):
-        write_checkpoint(checkpoint_path, field, grid, step, hist.as_arrays(), spec.text)
+    def record_with(step, evaluations, ended):
+        current = _segment(segment_started, start_step, step, evaluations, time.perf_counter() - segment_clock[0],
+                           ended)
+        return {"segments": segments + [current]}
+
+    def checkpoint(field, step, hist, state, ended=None):
+        ended = ended or ("interrupted" if interrupts.requested() is not None else "running")
+        write_checkpoint(checkpoint_path, field, grid, step, hist.as_arrays(), spec.text, state,
+                         record_with(step, state.get("evaluations", 0), ended))
 
     probe = probe_density(model.terms)
     if probe["negative"] and stream is not None:
@@ -324,111 +481,139 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
               file=stream, flush=True)
         print(f"  model: {describe_model(model)}", file=stream, flush=True)
     warm_up(model, field0, stream)
-    start = time.perf_counter()
+    _check_finite_start(model, field0)
+    segment_clock[0] = time.perf_counter()
     coarse = None
-    if relax_spec.coarse_start and not resume and initial_field is None:
-        coarse, coarse_field = coarse_stage(spec, grid, model, rule, stream)
-        if coarse_field is not None:
-            field0 = coarse_field
-    result = minimise(
-        model, field0, relax_spec.method, rule,
-        time_step=relax_spec.time_step or None,
-        history=history, start_step=start_step,
-        progress=Progress(stream, relax_spec.progress_seconds),
-        checkpoint=checkpoint, checkpoint_every=relax_spec.checkpoint_every,
-        monitor=lambda f: monitor_values(model, f),
-        monitor_every=MONITOR_EVERY,
-        preconditioner=relax_spec.preconditioner,
-        preconditioner_shift=relax_spec.preconditioner_shift,
-    )
-    field = result.field
-    energies = model.energies(field)
-    virial = model.virial(field)
-    charge = hopf_charge(field, grid)
-    density = model.energy_density(field)
-    if not result.history.monitor_step or result.history.monitor_step[-1] != result.steps:
-        # the final state's diagnostics, from the values just computed
-        final = snapshot(field, grid, density)
-        final.update(virial=virial["total"], hopf_charge=charge)
-        result.history.append_monitor(result.steps, final)
-    hessian = None
-    if spec.relax.hessian_modes and result.converged:
-        if stream is not None:
-            print(f"  Hessian: lowest {spec.relax.hessian_modes} modes by Lanczos ...", file=stream, flush=True)
-        hessian = lowest_modes(model, field, spec.relax.hessian_modes)
-    def verdict_with(saddle=None):
-        return assess(field, grid, density, charge, expected, virial["total"], result.status,
-                      result.history.as_arrays(), result.history.energy, probe["negative"], hessian, saddle)
+    with interrupts.deferred(), _naming_checkpoint(checkpoint_path):
+        if relax_spec.coarse_start and not resume and initial_field is None:
+            coarse, coarse_field = coarse_stage(spec, grid, model, rule, stream)
+            if coarse_field is not None:
+                field0 = coarse_field
+        result = minimise(
+            model, field0, relax_spec.method, rule,
+            time_step=relax_spec.time_step or None,
+            history=history, start_step=start_step,
+            progress=Progress(stream, relax_spec.progress_seconds),
+            checkpoint=checkpoint, checkpoint_every=relax_spec.checkpoint_every,
+            monitor=lambda f: monitor_values(model, f),
+            monitor_every=MONITOR_EVERY,
+            preconditioner=relax_spec.preconditioner,
+            preconditioner_shift=relax_spec.preconditioner_shift,
+            resume=saved_state,
+        )
+    if result.status == Outcome.INTERRUPTED:
+        raise interrupts.Interrupted(interrupts.requested(), checkpoint_path, result.steps)
+    segments.append(_segment(segment_started, start_step, result.steps, result.evaluations,
+                             time.perf_counter() - segment_clock[0], result.status))
+    needs_saddle_check = (spec.initial.noise == 0.0 and initial_field is None) if symmetric_start is None \
+        else symmetric_start
 
-    verdict = verdict_with()
-    # only a state that would be called stable needs the evidence that it is no saddle
-    if symmetric_start is None:
-        symmetric_start = spec.initial.noise == 0.0 and initial_field is None
-    if verdict["verdict"] == "stable" and spec.relax.saddle_check and symmetric_start:
-        verdict = verdict_with(saddle_check(model, field, result.energy, rule, spec, stream))
-    if abs(initial_charge - expected) > CHARGE_CHECK * expected:
-        verdict["warnings"].append(
-            f"the initial data measures Q = {initial_charge:.4f} against the family's {expected}: "
-            f"the grid (h = {grid.spacing[0]:g}) is too coarse for this family and size")
-    if grid.stretched and grid.largest_cell() > STRETCH_CELL_LIMIT:
-        verdict["warnings"].append(
-            f"the outermost cells of the stretched grid are {grid.largest_cell():.2f} model lengths wide: a soliton "
-            "that drifts or spreads into them can unwind through the lattice (seen: Q = 1 on 81^3, h = 0.25, "
-            "stretch 2, cells 17.4 wide; held up to 5.3); use a larger stretch or fewer points")
-    if coarse is not None and not coarse["used"]:
-        verdict["warnings"].append(f"the coarse start was discarded ({coarse['reason']}); "
-                                   "the run started from the initial data on the fine grid")
-    curves = solution_label(field, grid)
-    if curves["open_chains"]:
-        verdict["warnings"].append(f"{curves['open_chains']} preimage curves are cut by the box: "
-                                   "the soliton touches the border")
-    if abs(curves["linking_charge"] - charge) > 0.1 * max(1.0, abs(charge)):
-        verdict["warnings"].append(
-            f"the linking number of two preimages ({curves['linking_charge']:.3f}) disagrees with "
-            f"the Whitehead integral Q = {charge:.4f}: curves under-resolved or field not smooth")
-    summary = {
-        "energy": float(sum(energies.values())),
-        "terms": energies,
-        "hopf_charge": charge,
-        "expected_charge": expected,
-        "initial_charge": initial_charge,
-        "family": spec.initial.description,
-        "label": curves["label"],
-        "curves": {"components": curves["components"], "pair_linking": curves["pair_linking"],
-                   "linking_charge": curves["linking_charge"], "open_chains": curves["open_chains"]},
-        "virial": virial["total"],
-        "virial_per_axis": virial["per_axis"],
-        "converged": result.converged,
-        "status": result.status,
-        "iterations": result.steps,
-        "evaluations": result.evaluations,
-        "max_force": result.max_force,
-        "grid": {"shape": list(grid.shape), "spacing": list(grid.spacing),
-                 "origin": list(grid.origin), "boundary": grid.boundary, "stretch": list(grid.stretch),
-                 "scheme": spec.grid.scheme, "box_side": list(grid.side)},
-        "method": relax_spec.method,
-        "backend": model.route.name,
-        "model": describe_model(model),
-        "plain_model": kernel_couplings(model.terms) == (1.0, 1.0),
-        "coarse_stage": coarse,
-        "bounded_below_probe": probe,
-        "verdict": verdict["verdict"],
-        "evidence": verdict["evidence"],
-        "warnings": verdict["warnings"],
-        "wall_seconds": time.perf_counter() - start,
-        "normalisation": NORMALISATION_TEXT,
-        "version": __version__,
-        "config_hash": config_hash(spec.text),
-    }
-    write_result(out / RESULT, field, grid, density, summary, result.history.as_arrays(),
-                 spec.text, __version__)
-    write_xdmf(out / XDMF, out / RESULT, grid)
-    write_json(out / SUMMARY, summary)
-    checkpoint_path.unlink(missing_ok=True)
-    return summary
+    def finish() -> dict:
+        """Diagnostics, verdict and result files of the relaxed state."""
+        field = result.field
+        energies = model.energies(field)
+        virial = model.virial(field)
+        charge = hopf_charge(field, grid)
+        density = model.energy_density(field)
+        if not result.history.monitor_step or result.history.monitor_step[-1] != result.steps:
+            # the final state's diagnostics, from the values just computed
+            final = snapshot(field, grid, density)
+            final.update(virial=virial["total"], hopf_charge=charge)
+            result.history.append_monitor(result.steps, final)
+        hessian = None
+        if spec.relax.hessian_modes and result.converged:
+            if stream is not None:
+                print(f"  Hessian: lowest {spec.relax.hessian_modes} modes by Lanczos ...", file=stream, flush=True)
+            hessian = lowest_modes(model, field, spec.relax.hessian_modes)
+        def verdict_with(saddle=None):
+            return assess(field, grid, density, charge, expected, virial["total"], result.status,
+                          result.history.as_arrays(), result.history.energy, probe["negative"], hessian, saddle)
+
+        verdict = verdict_with()
+        # only a state that would be called stable needs the evidence that it is no saddle
+        if verdict["verdict"] == Outcome.STABLE and spec.relax.saddle_check and needs_saddle_check:
+            with interrupts.deferred():
+                saddle = saddle_check(model, field, result.energy, rule, spec, stream)
+            if saddle is None:  # interrupted (the handler below checkpoints the relaxed state)
+                raise interrupts.Interrupted(interrupts.requested())
+            verdict = verdict_with(saddle)
+        if abs(initial_charge - expected) > CHARGE_CHECK * expected:
+            verdict["warnings"].append(
+                f"the initial data measures Q = {initial_charge:.4f} against the family's {expected}: "
+                f"the grid (h = {grid.spacing[0]:g}) is too coarse for this family and size")
+        if grid.stretched and grid.largest_cell() > STRETCH_CELL_LIMIT:
+            verdict["warnings"].append(
+                f"the outermost cells of the stretched grid are {grid.largest_cell():.2f} model lengths wide: a soliton "
+                "that drifts or spreads into them can unwind through the lattice (seen: Q = 1 on 81^3, h = 0.25, "
+                "stretch 2, cells 17.4 wide; held up to 5.3); use a larger stretch or fewer points")
+        if coarse is not None and not coarse["used"]:
+            verdict["warnings"].append(f"the coarse start was discarded ({coarse['reason']}); "
+                                       "the run started from the initial data on the fine grid")
+        curves = solution_label(field, grid)
+        if curves["open_chains"]:
+            verdict["warnings"].append(f"{curves['open_chains']} preimage curves are cut by the box: "
+                                       "the soliton touches the border")
+        if abs(curves["linking_charge"] - charge) > 0.1 * max(1.0, abs(charge)):
+            verdict["warnings"].append(
+                f"the linking number of two preimages ({curves['linking_charge']:.3f}) disagrees with "
+                f"the Whitehead integral Q = {charge:.4f}: curves under-resolved or field not smooth")
+        segments[-1]["wall_seconds"] = time.perf_counter() - segment_clock[0]  # diagnostics included
+        summary = {
+            "energy": float(sum(energies.values())),
+            "terms": energies,
+            "hopf_charge": charge,
+            "expected_charge": expected,
+            "initial_charge": initial_charge,
+            "family": spec.initial.description,
+            "label": curves["label"],
+            "curves": {"components": curves["components"], "pair_linking": curves["pair_linking"],
+                       "linking_charge": curves["linking_charge"], "open_chains": curves["open_chains"]},
+            "virial": virial["total"],
+            "virial_per_axis": virial["per_axis"],
+            "converged": result.converged,
+            "status": str(result.status),
+            "iterations": result.steps,
+            "evaluations": sum(seg["evaluations"] for seg in segments),
+            "segments": segments,
+            "max_force": result.max_force,
+            "grid": {"shape": list(grid.shape), "spacing": list(grid.spacing),
+                     "origin": list(grid.origin), "boundary": grid.boundary, "stretch": list(grid.stretch),
+                     "scheme": spec.grid.scheme, "box_side": list(grid.side)},
+            "method": relax_spec.method,
+            "backend": model.route.name,
+            "model": describe_model(model),
+            "plain_model": kernel_couplings(model.terms) == (1.0, 1.0),
+            "coarse_stage": coarse,
+            "bounded_below_probe": probe,
+            "verdict": str(verdict["verdict"]),
+            "evidence": verdict["evidence"],
+            "warnings": verdict["warnings"],
+            "wall_seconds": sum(seg["wall_seconds"] for seg in segments),
+            "normalisation": NORMALISATION_TEXT,
+            "version": __version__,
+            "config_hash": run_hash(spec),
+            "provenance": provenance(spec),
+        }
+        if not (math.isfinite(summary["energy"]) and np.all(np.isfinite(density)) and np.all(np.isfinite(field))):
+            raise RunError(f"the final state's energy is non-finite (E = {summary['energy']}): "
+                           f"{first_non_finite(model, field)}; no result was written")
+        write_result(out / RESULT, field, grid, density, summary, result.history.as_arrays(),
+                     spec.text, __version__)
+        write_xdmf(out / XDMF, out / RESULT, grid)
+        write_json(out / SUMMARY, summary)
+        checkpoint_path.unlink(missing_ok=True)
+        return summary
+
+    try:
+        return finish()
+    except interrupts.Interrupted as stop:  # during the diagnostics: keep the relaxed state for --resume
+        segments.pop()  # the checkpoint's record writes this segment again, as interrupted
+        checkpoint(result.field, result.steps, result.history, {"evaluations": result.evaluations}, "interrupted")
+        stop.checkpoint, stop.step = checkpoint_path, result.steps
+        raise
 
 
-def report(summary: dict, out_dir: str | Path, stream: TextIO = sys.stdout) -> None:
+def report(summary: dict, out_dir: str | Path, stream: TextIO | None = None) -> None:
     """Human-readable account of a finished run."""
     e = summary["evidence"]
     g = summary["grid"]
@@ -460,4 +645,4 @@ def report(summary: dict, out_dir: str | Path, stream: TextIO = sys.stdout) -> N
         lines.append(f"WARNING       {warning}")
     lines.append(f"files         {Path(out_dir) / RESULT}  {Path(out_dir) / SUMMARY}  "
                  f"{Path(out_dir) / XDMF}")
-    print("\n".join(lines), file=stream, flush=True)
+    print("\n".join(lines), file=stream or sys.stdout, flush=True)

@@ -53,16 +53,18 @@ def execute(task: dict) -> dict:
     """Relax one task (in a worker) and record it in the catalogue; never raises for a
     failed run: the returned row then has status 'failed' and the error."""
     from solitons.config import load
-    from solitons.driver import CHECKPOINT, SUMMARY, RunError, config_hash, relax
+    from solitons.driver import CHECKPOINT, SUMMARY, RunError, config_hash, provenance, relax, run_hash
 
     root = Path(task["root"])
     out = root / task["task"]
     start = time.perf_counter()
-    row = {"task": task["task"], "config_hash": config_hash(task["text"]), "path": str(out),
+    row = {"task": task["task"], "config_hash": config_hash(task["text"]), "path": task["task"],
            "worker": f"{socket.gethostname()}:{os.getpid()}", "family": task["labels"].get("family"),
            "expected_charge": task["labels"].get("expected_charge")}
     try:
         spec = load(None, text=task["text"], base_dir=task["base_dir"])
+        row["config_hash"] = run_hash(spec)
+        row["provenance"] = json.dumps(provenance(spec))
         row["model"] = model_text(spec)
         row["family"] = spec.initial.description
         row["expected_charge"] = spec.initial.expected_charge
@@ -144,7 +146,7 @@ def run_tasks(tasks: list[dict], scheduler: str | None = None, workers: int | No
                        "error": f"{type(error).__name__}: {error}"}
                 try:
                     catalogue.record(Path(tasks[index]["root"]) / catalogue.CATALOGUE,
-                                     dict(row, path=str(Path(tasks[index]["root"]) / tasks[index]["task"]),
+                                     dict(row, path=tasks[index]["task"],
                                           finished_at=time.time()))
                 except Exception:  # the catalogue itself is unreachable: keep the row in memory
                     pass

@@ -41,6 +41,7 @@ scheme's order (three, five or seven points); each symbol is negative except at 
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import jax.numpy as jnp
@@ -210,7 +211,7 @@ class Grid:
 
     @property
     def npoints(self) -> int:
-        return int(np.prod(self.shape))
+        return math.prod(int(n) for n in self.shape)  # Python integers: no overflow
 
     @property
     def cell_volume(self) -> float:

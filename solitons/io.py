@@ -13,7 +13,9 @@ checkpoint.
     /coordinates      float64 (Nx, Ny, Nz, 3), site positions (for the XDMF sidecar)
     /history/{step, energy, force, seconds}
     attrs: config (TOML text), version, normalisation, energy, hopf_charge, virial,
-           virial_per_axis, status, verdict, summary (the summary JSON text)
+           virial_per_axis, status, verdict, summary (the summary JSON text),
+           provenance (JSON: package version and git commit, Python and library
+           versions, each user-term file with its SHA-256 and content)
     /terms attrs: one energy per term name
 """
 
@@ -34,11 +36,73 @@ class ResultFileError(OSError):
     """A result or checkpoint file that cannot be read: names the file and the problem."""
 
 
+def _current_umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+# Files are created with the permissions of any program's files (0666 less the umask), not
+# mkstemp's private 0600: colleagues sharing a results directory can read them.
+FILE_MODE = 0o666 & ~_current_umask()
+TMP_SUFFIX = ".tmp"
+
+
 def _atomic_target(path: Path):
     path.parent.mkdir(parents=True, exist_ok=True)
-    handle, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    handle, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=TMP_SUFFIX, dir=path.parent)
+    os.fchmod(handle, FILE_MODE)
     os.close(handle)
     return Path(tmp)
+
+
+def stale_temporaries(directory: str | Path) -> list[Path]:
+    """Half-written files that a killed process left in ``directory`` (the temporary names
+    of `_atomic_target`; a finished write renames its file into place)."""
+    directory = Path(directory)
+    if not directory.is_dir():
+        return []
+    return sorted(p for p in directory.glob(f".*{TMP_SUFFIX}")
+                  if any(p.name.startswith(f".{name}.") for name in ("result.h5", "checkpoint.h5", "summary.json",
+                                                                     "result.xdmf")))
+
+
+class OutputError(OSError):
+    """An output location that cannot be used: names the path and the problem."""
+
+
+def check_output_dir(path: str | Path) -> Path:
+    """Whether ``path`` can become an output directory, without creating anything: it is
+    a writable directory, or its nearest existing ancestor is one.  OutputError if not."""
+    path = Path(path)
+    if path.exists() and not path.is_dir():
+        raise OutputError(f"{path}: exists and is not a directory; name a directory for the output")
+    ancestor = path
+    while not ancestor.exists():
+        ancestor = ancestor.parent
+    if not ancestor.is_dir():
+        raise OutputError(f"{path}: cannot create it, {ancestor} is a file")
+    if not os.access(ancestor, os.W_OK | os.X_OK):
+        raise OutputError(f"{path}: cannot write output there ({ancestor} is not writable)")
+    return path
+
+
+def prepare_output_dir(path: str | Path) -> Path:
+    """Create ``path`` as a directory (with its parents) and check that files can be
+    written in it, before any work starts; an existing file of that name, a parent that
+    is a file, or a place without write permission is an OutputError."""
+    path = Path(path)
+    if path.exists() and not path.is_dir():
+        raise OutputError(f"{path}: exists and is not a directory; name a directory for the output")
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+        handle, probe = tempfile.mkstemp(prefix=".write-test.", dir=path)
+        os.close(handle)
+        os.unlink(probe)
+    except OSError as error:
+        reason = error.strerror or str(error)
+        raise OutputError(f"{path}: cannot write output there ({reason})") from None
+    return path
 
 
 def finite_json(value):
@@ -106,6 +170,8 @@ def write_result(path, field, grid: Grid, energy_density, summary: dict, history
             h5.attrs["status"] = summary["status"]
             h5.attrs["verdict"] = summary["verdict"]
             h5.attrs["summary"] = json.dumps(finite_json(summary), allow_nan=False)
+            if "provenance" in summary:
+                h5.attrs["provenance"] = json.dumps(summary["provenance"])
         os.replace(tmp, path)
     finally:
         tmp.unlink(missing_ok=True)
@@ -141,8 +207,12 @@ def _read_result(path) -> dict:
         }
 
 
-def write_checkpoint(path, field, grid: Grid, step: int, history_arrays: dict, config_text: str):
-    """Atomic checkpoint: field, step, history and the config it belongs to."""
+def write_checkpoint(path, field, grid: Grid, step: int, history_arrays: dict, config_text: str,
+                     state: dict | None = None, record: dict | None = None):
+    """Atomic checkpoint: field, step, history, the config it belongs to, the minimiser's
+    loop state (/minimiser: arrays as datasets, numbers and strings as attributes; see
+    solitons.minimise) and the run's record so far (``record``: JSON, the segments of a
+    run and their counts)."""
     path = Path(path)
     tmp = _atomic_target(path)
     try:
@@ -151,20 +221,48 @@ def write_checkpoint(path, field, grid: Grid, step: int, history_arrays: dict, c
             _write_history(h5, history_arrays)
             h5.attrs["step"] = int(step)
             h5.attrs["config"] = config_text
+            h5.attrs["record"] = json.dumps(finite_json(record or {}), allow_nan=False)
+            group = h5.create_group("minimiser")
+            for key, value in (state or {}).items():
+                if isinstance(value, np.ndarray):
+                    group.create_dataset(key, data=value)
+                else:
+                    group.attrs[key] = value
         os.replace(tmp, path)
     finally:
         tmp.unlink(missing_ok=True)
 
 
+def _plain(value):
+    """An HDF5 attribute as a Python value (numpy scalars and bytes unwrapped)."""
+    if isinstance(value, bytes):
+        return value.decode()
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
 def read_checkpoint(path) -> dict:
-    with h5py.File(path, "r") as h5:
-        return {
-            "field": h5["field"][...],
-            "grid": _grid_from(h5["field"]),
-            "history": {k: v[...] for k, v in h5["history"].items()},
-            "step": int(h5.attrs["step"]),
-            "config": str(h5.attrs["config"]),
-        }
+    """Field, grid, history, step, config, minimiser state (None if the checkpoint holds
+    none) and record of a checkpoint; an unreadable file is a ResultFileError."""
+    try:
+        with h5py.File(path, "r") as h5:
+            state = None
+            if "minimiser" in h5 and len(h5["minimiser"].attrs):
+                group = h5["minimiser"]
+                state = {k: _plain(v) for k, v in group.attrs.items()}
+                state.update({k: v[...] for k, v in group.items()})
+            return {
+                "field": h5["field"][...],
+                "grid": _grid_from(h5["field"]),
+                "history": {k: v[...] for k, v in h5["history"].items()},
+                "step": int(h5.attrs["step"]),
+                "config": str(h5.attrs["config"]),
+                "state": state,
+                "record": json.loads(h5.attrs.get("record", "{}")),
+            }
+    except (OSError, KeyError) as error:
+        raise ResultFileError(f"{path}: not a readable solitons checkpoint ({error})") from None
 
 
 def write_xdmf(path, h5_path, grid: Grid) -> None:

@@ -34,24 +34,27 @@ from __future__ import annotations
 import functools
 import math
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 from dataclasses import field as dataclass_field
-from typing import Callable
 
 import jax
 import jax.numpy as jnp
 import numpy as np
 import scipy.optimize
 
+from solitons import interrupts
 from solitons.energy import Model, normalise, project_tangent
+from solitons.outcomes import Outcome
 
 METHODS = ("lbfgs", "arrested_newton", "gradient_flow", "scipy_lbfgs")
 PRECONDITIONERS = ("laplacian", "none")
 
-CONVERGED = "converged"
-MAX_STEPS = "max_steps"
-NON_FINITE = "non_finite"
-RUNAWAY = "runaway"
+CONVERGED = Outcome.CONVERGED
+MAX_STEPS = Outcome.MAX_STEPS
+NON_FINITE = Outcome.NON_FINITE
+RUNAWAY = Outcome.RUNAWAY
+INTERRUPTED = Outcome.INTERRUPTED
 
 
 @dataclass(frozen=True)
@@ -103,9 +106,9 @@ class History:
 @dataclass
 class MinimiseResult:
     field: np.ndarray  # (Nx, Ny, Nz, 3), the last finite state
-    status: str  # converged | max_steps | non_finite
+    status: str  # an Outcome: converged | max_steps | non-finite | runaway | interrupted
     steps: int  # total steps, including those of a resumed run
-    evaluations: int  # value_and_grad calls in this run
+    evaluations: int  # value_and_grad calls in this call (a resumed run: since the resume)
     energy: float
     max_force: float
     history: History
@@ -121,7 +124,7 @@ class _Tracker:
     """Shared bookkeeping: history, stopping rule, progress, checkpoints."""
 
     def __init__(self, model, rule, history, start_step, progress, checkpoint, checkpoint_every,
-                 monitor=None, monitor_every=0):
+                 monitor=None, monitor_every=0, resume=None):
         self.monitor = monitor
         self.monitor_every = monitor_every
         self.model = model
@@ -136,9 +139,25 @@ class _Tracker:
         self.last_energy = self.history.energy[-1] if self.history.energy else None
         self.first_energy = self.history.energy[0] if self.history.energy else None
         self.offset = self.history.seconds[-1] if self.history.seconds else 0.0
+        if resume is not None:  # the counter of quiet steps is not in the history
+            self.quiet_steps = int(resume.get("quiet_steps", 0))
 
-    def record(self, field, energy, max_force) -> str | None:
-        """Log one accepted step; return a status if the run should stop."""
+    def remaining(self, rule) -> int:
+        """Steps left under max_steps, which counts the steps before a resume too."""
+        return max(0, rule.max_steps - self.step)
+
+    def save(self, field, state) -> None:
+        """Checkpoint the field, the history and the minimiser's state (``state()``: the
+        arrays and numbers its loop carries between steps, plus this tracker's counter)."""
+        if self.checkpoint is None:
+            return
+        values = dict(state()) if state is not None else {}
+        values["quiet_steps"] = self.quiet_steps
+        self.checkpoint(np.asarray(field), self.step, self.history, values)
+
+    def record(self, field, energy, max_force, state=None) -> str | None:
+        """Log one accepted step; return a status if the run should stop.  ``state``: a
+        callable returning the minimiser's loop state, called only for a checkpoint."""
         self.step += 1
         elapsed = time.perf_counter() - self.start
         self.history.append(self.step, energy, max_force, self.offset + elapsed)
@@ -159,8 +178,11 @@ class _Tracker:
                 or (self.step < 2 * self.monitor_every and self.step % max(1, self.monitor_every // 4) == 0)):
             # denser early on, where collapse or unwinding can happen within a few steps
             self.history.append_monitor(self.step, self.monitor(field))
+        if interrupts.requested() is not None:  # SIGINT / SIGTERM: stop here, state saved
+            self.save(field, state)
+            return INTERRUPTED
         if self.checkpoint is not None and self.checkpoint_every and self.step % self.checkpoint_every == 0:
-            self.checkpoint(np.asarray(field), self.step, self.history)
+            self.save(field, state)
         if max_force < self.rule.force_tol or self.quiet_steps >= self.rule.patience:
             return CONVERGED
         return None
@@ -186,6 +208,7 @@ def minimise(
     monitor_every: int = 0,
     preconditioner: str = "laplacian",
     preconditioner_shift: float | None = None,
+    resume: dict | None = None,
 ) -> MinimiseResult:
     """Relax ``field0`` (Nx, Ny, Nz, 3) with ``method``.
 
@@ -196,11 +219,21 @@ def minimise(
     values kept in the history.  preconditioner ("laplacian" or "none") and
     preconditioner_shift (1 / length^2, default solitons.preconditioner.SHIFT) set the
     initial inverse Hessian of ``lbfgs``; the other methods ignore them.
+
+    checkpoint(field, step, history, state) receives, besides the field, the minimiser's
+    loop state (``state``: arrays and numbers; "evaluations" counts this call's); handing that dict
+    back as ``resume`` (with ``history`` and ``start_step``) continues the run exactly
+    where it stopped: the same steps and energies as a run never stopped (lbfgs,
+    arrested_newton, gradient_flow; scipy_lbfgs keeps its state inside scipy and restarts
+    from the field).  A SIGINT/SIGTERM recorded by `solitons.interrupts` stops the run
+    after the current step with status ``interrupted``, its state checkpointed.
     """
     if method not in METHODS:
         raise ValueError(f"unknown method {method!r}; choose from {METHODS}")
+    if resume is not None and resume.get("method") != method:
+        resume = None  # another method's state: start this one from the field
     tracker = _Tracker(model, rule, history, start_step, progress, checkpoint, checkpoint_every,
-                       monitor, monitor_every)
+                       monitor, monitor_every, resume)
     if monitor is not None and monitor_every and not tracker.history.monitor_step:
         tracker.history.append_monitor(start_step, monitor(jnp.asarray(field0)))
     start = time.perf_counter()
@@ -208,7 +241,7 @@ def minimise(
                                          preconditioner_shift=preconditioner_shift),
               "arrested_newton": _arrested_newton, "gradient_flow": _gradient_flow, "scipy_lbfgs": _scipy_lbfgs}
     field, status, evaluations, message = runner[method](
-        model, jnp.asarray(field0, dtype=jnp.float64), tracker, rule, time_step, lbfgs_memory
+        model, jnp.asarray(field0, dtype=jnp.float64), tracker, rule, time_step, lbfgs_memory, resume
     )
     final_energy, final_gradient = model.evaluate(np.asarray(field))
     return MinimiseResult(
@@ -224,25 +257,34 @@ def minimise(
     )
 
 
-def _arrested_newton(model, field, tracker, rule, time_step, _memory):
+def _arrested_newton(model, field, tracker, rule, time_step, _memory, resume=None):
     h = min(model.grid.spacing)
     dt = (0.07 if time_step is None else time_step) * h
     scale = jnp.asarray(model.site_scale())  # per site on stretched grids: force per unit volume
     step_fn = _anf_step_fn(model, dt)
-    velocity = jnp.zeros_like(field)
-    value, grad = model.value_and_grad(field)
-    evaluations = 1
-    for _ in range(rule.max_steps):
+    if resume is None:
+        velocity = jnp.zeros_like(field)
+        value, grad = model.value_and_grad(field)
+        evaluations = 1
+    else:
+        velocity, grad = jnp.asarray(resume["velocity"]), jnp.asarray(resume["gradient"])
+        value, evaluations = float(resume["value"]), 0
+
+    def state():
+        return {"method": "arrested_newton", "velocity": np.asarray(velocity), "gradient": np.asarray(grad),
+                "value": float(value), "evaluations": evaluations}
+
+    for _ in range(tracker.remaining(rule)):
         new_field, new_velocity, new_value, new_grad, max_force = step_fn(field, velocity, grad, scale)
         evaluations += 1
         new_value = float(new_value)
         if not math.isfinite(new_value) or not math.isfinite(float(max_force)):
             tracker.record(field, new_value, float(max_force))
-            return field, "non_finite", evaluations, "energy or force became non-finite"
+            return field, NON_FINITE, evaluations, "energy or force became non-finite"
         if new_value > float(value):
             new_velocity = jnp.zeros_like(new_velocity)  # arrest
         field, velocity, value, grad = new_field, new_velocity, new_value, new_grad
-        status = tracker.record(field, value, float(max_force))
+        status = tracker.record(field, value, float(max_force), state)
         if status:
             return field, status, evaluations, ""
     return field, MAX_STEPS, evaluations, f"stopped after max_steps={rule.max_steps}"
@@ -261,7 +303,7 @@ def _anf_step_fn(model, dt):
     return step
 
 
-def _gradient_flow(model, field, tracker, rule, time_step, _memory):
+def _gradient_flow(model, field, tracker, rule, time_step, _memory, resume=None):
     h = min(model.grid.spacing)
     dt = (0.01 if time_step is None else time_step) * h * h
     scale = jnp.asarray(model.site_scale())
@@ -272,22 +314,30 @@ def _gradient_flow(model, field, tracker, rule, time_step, _memory):
         value, new_grad = model.value_and_grad(new_field)
         return new_field, value, new_grad, jnp.max(jnp.linalg.norm(new_grad / scale, axis=-1))
 
-    _, grad = model.value_and_grad(field)
-    evaluations = 1
-    for _ in range(rule.max_steps):
+    if resume is None:
+        _, grad = model.value_and_grad(field)
+        evaluations = 1
+    else:
+        grad, evaluations = jnp.asarray(resume["gradient"]), 0
+
+    def state():
+        return {"method": "gradient_flow", "gradient": np.asarray(grad),
+                "evaluations": evaluations}
+
+    for _ in range(tracker.remaining(rule)):
         new_field, value, new_grad, max_force = step(field, grad, scale)
         evaluations += 1
         if not (math.isfinite(float(value)) and math.isfinite(float(max_force))):
             tracker.record(field, float(value), float(max_force))
             return field, NON_FINITE, evaluations, "energy or force became non-finite"
         field, grad = new_field, new_grad
-        status = tracker.record(field, float(value), float(max_force))
+        status = tracker.record(field, float(value), float(max_force), state)
         if status:
             return field, status, evaluations, ""
     return field, MAX_STEPS, evaluations, f"stopped after max_steps={rule.max_steps}"
 
 
-def _scipy_lbfgs(model, field, tracker, rule, _time_step, memory):
+def _scipy_lbfgs(model, field, tracker, rule, _time_step, memory, _resume=None):
     shape = field.shape
     scale = model.force_scale()
     site_scale = jnp.asarray(model.site_scale())
@@ -333,7 +383,7 @@ def _scipy_lbfgs(model, field, tracker, rule, _time_step, memory):
             jac=True,
             method="L-BFGS-B",
             callback=callback,
-            options={"maxiter": rule.max_steps, "maxcor": memory, "ftol": 0.0, "gtol": 0.0,
+            options={"maxiter": tracker.remaining(rule), "maxcor": memory, "ftol": 0.0, "gtol": 0.0,
                      "maxls": 40, "maxfun": 10 * rule.max_steps},
         )
     except StopIteration:  # older scipy versions propagate it from fun
@@ -354,7 +404,7 @@ def _scipy_lbfgs(model, field, tracker, rule, _time_step, memory):
 HISTORY_DTYPE = np.float64
 
 
-def _lbfgs(model, field, tracker, rule, _time_step, memory, preconditioner="laplacian",
+def _lbfgs(model, field, tracker, rule, _time_step, memory, resume=None, preconditioner="laplacian",
            preconditioner_shift=None):
     """Numpy state with the fused passes of solitons.fieldops; one evaluation per trial
     point through Model.evaluate (the numba kernel where it applies, jax otherwise).
@@ -428,10 +478,33 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory, preconditioner="lapl
         return fieldops.compact_direction(flat_field, flat_gradient, base, inv_scale, gamma, s_flat, y_flat, slots,
                                           p_coef, q_coef, weights3, mask, flat_step)
 
-    value, gradient = evaluate(field, np.empty((sites, 3)))
-    evaluations = 1
+    if resume is not None and int(resume["memory"]) != memory:
+        resume = None  # another history length: start from the field (still a valid run)
+    if resume is None:
+        value, gradient = evaluate(field, np.empty((sites, 3)))
+        evaluations = 1
+    else:  # the loop state as it was after the last accepted step (see `state`)
+        value, evaluations = float(resume["value"]), 0
+        gradient = np.array(resume["gradient"], dtype=np.float64).reshape(sites, 3)
+        s_hist[...], y_hist[...] = resume["s_hist"], resume["y_hist"]
+        sy[...], yy[...] = resume["sy"], resume["yy"]
+        order = [int(k) for k in np.asarray(resume["order"]).ravel()]
+        if order and operator is not None:
+            y_buffers[0][...] = np.asarray(resume["newest_y"]).reshape(sites, 3)
+            newest_y = y_buffers[0].reshape(-1)
+        elif order:
+            newest_y = y_hist[order[-1]].reshape(-1)
+
+    def state():
+        """Everything the loop carries from one step to the next: with it a resumed run
+        takes the same steps as one never stopped."""
+        return {"method": "lbfgs", "memory": memory, "value": value, "gradient": gradient.reshape(shape),
+                "s_hist": s_hist, "y_hist": y_hist, "sy": sy, "yy": yy, "order": np.asarray(order, dtype=np.int64),
+                "newest_y": (np.zeros(0) if newest_y is None or operator is None else newest_y.reshape(shape)),
+                "evaluations": evaluations}
+
     h = min(model.grid.spacing)
-    for _ in range(rule.max_steps):
+    for _ in range(tracker.remaining(rule)):
         base = preconditioned(gradient)
         largest, slope = direction(gradient, base)
         if not slope < 0:  # not a descent direction: restart from (preconditioned) steepest descent
@@ -471,7 +544,7 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory, preconditioner="lapl
         field, trial_field = trial_field, field
         spare = gradient
         value, gradient = new_value, new_gradient
-        status = tracker.record(field.reshape(shape), value, float(max_force))
+        status = tracker.record(field.reshape(shape), value, float(max_force), state)
         if status:
             return field.reshape(shape), status, evaluations, ""
     return field.reshape(shape), MAX_STEPS, evaluations, f"stopped after max_steps={rule.max_steps}"

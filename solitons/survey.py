@@ -17,7 +17,7 @@ DIR/Q<charge>/<family>-s<seed>/ as one task on the distributed engine (solitons.
 DIR/catalogue.sqlite records every finished run and a rerun skips them.  The survey writes
 DIR/survey.csv, DIR/survey.md (the table, with the grid, spacing and stencil) and
 DIR/survey.png (E / Q^(3/4) against Q with Ward's conjectured bound E = Q^(3/4) and the
-Vakulenko-Kapitanski type bound E = 0.534 Q^(3/4), REFERENCES.md).
+Vakulenko-Kapitanski type bound E = 0.534 Q^(3/4), docs/references.md [R8, R9]).
 """
 
 from __future__ import annotations
@@ -32,20 +32,21 @@ from typing import TextIO
 import numpy as np
 
 from solitons import catalogue
-from solitons.config import ConfigError, _toml_value, load, read_campaign_table
-from solitons.driver import RESULT, SUMMARY, config_hash
+from solitons.config import ConfigError, load, read_campaign_table, toml_inline
+from solitons.driver import RESULT, SUMMARY, run_hash
 from solitons.engine import make_task, run_tasks
 from solitons.initial import describe
+from solitons.outcomes import Outcome
 
 SURVEY_KEYS = ("charges", "seeds", "families", "continuum")
 
 # Ward's conjectured bound E >= Q^(3/4) (Ward, Nonlinearity 12 (1999) 241, memory) and the
 # Vakulenko-Kapitanski type bound E >= (3/16)^(3/8) Q^(3/4) (Kundu-Rybakov constant,
-# memory): both as in REFERENCES.md, in the Battye-Sutcliffe units of solitons.energy.
+# recalled): docs/references.md [R8, R9], in the Battye-Sutcliffe units of solitons.energy.
 WARD = 1.0
 VAKULENKO_KAPITANSKI = (3.0 / 16.0) ** 0.375
 
-# Published minimal energies with their tolerance (REFERENCES.md, memory of
+# Published minimal energies with their tolerance (docs/references.md [R13, R14], recalled from
 # Battye-Sutcliffe 1999 and Sutcliffe 2007): Q -> (E, relative tolerance).
 PUBLISHED = {1: (1.22, 0.02), 2: (2.00, 0.03)}
 
@@ -93,7 +94,7 @@ def read_survey(path: str | Path, overrides=()) -> tuple[dict, list]:
                           "(without noise every seed relaxes the same field)")
     tasks = []
     for index, family in enumerate(families):
-        overrides_f = [f"initial.{k}={_toml_value(v)}" for k, v in family.items()]
+        overrides_f = [f"initial.{k}={toml_inline(v)}" for k, v in family.items()]
         try:
             probe = load(path, list(overrides) + overrides_f, ignore_tables=("survey",))
         except ConfigError as error:
@@ -139,7 +140,7 @@ def run_survey(path, out_dir, overrides=(), scheduler: str | None = None, worker
         name = f"Q{q}/{_slug(describe(part))}-s{seed}"
         names.append(name)
         previous = done.get(name)
-        if (previous and previous["config_hash"] == config_hash(spec.text)
+        if (previous and previous["config_hash"] == run_hash(spec)
                 and (out / name / RESULT).exists() and (out / name / SUMMARY).exists()):
             continue  # finished before with the same configuration
         tasks.append(make_task(out, name, spec.text, base_dir, continuum=table["continuum"], family=describe(part),
@@ -156,7 +157,7 @@ def run_survey(path, out_dir, overrides=(), scheduler: str | None = None, worker
     rows = []
     for (q, part, seed, spec), name in zip(entries, names):
         row = recorded.get(name, {"status": "not run"})
-        if row.get("status") == "finished" and row.get("config_hash") != config_hash(spec.text):
+        if row.get("status") == "finished" and row.get("config_hash") != run_hash(spec):
             row = {"status": "not run", "error": "the catalogue holds a run of another configuration"}
         entry = {"Q": q, "family": describe(part), "seed": seed, "task": name, "status": row.get("status"),
                  "error": row.get("error") or ""}
@@ -184,7 +185,7 @@ def mark_lowest(rows: list[dict]) -> None:
         row["lowest"] = False
     for q in {r["Q"] for r in rows}:
         keep = [r for r in rows if r["Q"] == q and r.get("energy") is not None
-                and abs(r["measured_Q"] - q) < 0.1 and r["verdict"] not in ("non-finite", "unwound")]
+                and abs(r["measured_Q"] - q) < 0.1 and r["verdict"] not in (Outcome.NON_FINITE, Outcome.UNWOUND)]
         if keep:
             min(keep, key=lambda r: r["energy"])["lowest"] = True
 

@@ -222,7 +222,7 @@ class Term:
 
 def quartic_bound(terms) -> dict:
     """Apply the derived criterion to the quartic terms of a model: write their sum as
-    a H^2 + b (dn . dn)^2 and report whether b >= 0 and a + 4 b >= 0 (REFERENCES.md)."""
+    a H^2 + b (dn . dn)^2 and report whether b >= 0 and a + 4 b >= 0 (docs/references.md [R19])."""
     a = b = 0.0
     for term in terms:
         kind = term.kind.name

@@ -12,7 +12,8 @@ prefactor, like the built-in densities of `solitons.terms`):
 
 It is traced by jax, so it gets the same exact gradient, virial and lattice scheme as a
 built-in term.  Loading checks it on random local fields: one finite scalar per site,
-and whether it is invariant under global rotations of the target (reported, not
+zero in the vacuum n = (0, 0, 1) with zero derivatives (refused otherwise: the energy
+of all space would be infinite), and whether it is invariant under global rotations of the target (reported, not
 required: a Zeeman-like potential is not).
 """
 
@@ -76,6 +77,13 @@ def load_user_term(path: str | Path, function: str, derivatives: int | None = No
                             f"got shape {values.shape}")
     if not np.all(np.isfinite(values)):
         raise UserTermError(f"{label}: returns non-finite values on random fields")
+    vacuum = float(np.asarray(density(jnp.asarray([[0.0, 0.0, 1.0]]), jnp.zeros((1, 3, 3)),
+                                      jnp.zeros((1, 3)) if laplacian else None, **parameters))[0])
+    if vacuum != 0.0:
+        raise UserTermError(
+            f"{label}: the density is {vacuum:.6g} in the vacuum (n = (0, 0, 1), every derivative zero), not 0: "
+            "the energy of all space would be infinite, and on a box it would add that value times the box volume "
+            "to every energy; subtract the vacuum value in the function")
     rotation = Rotation.random(random_state=rng).as_matrix()
     rotated = np.asarray(density(jnp.asarray(n @ rotation.T), jnp.asarray(d @ rotation.T),
                                  jnp.asarray(lap @ rotation.T) if laplacian else None, **parameters))

@@ -91,8 +91,10 @@ def test_an_interrupted_task_continues_from_its_checkpoint(tmp_path):
     (tmp_path / "run").mkdir()
     write_checkpoint(tmp_path / "run" / "checkpoint.h5", make_initial_field(spec, grid), grid, 7,
                      history.as_arrays(), spec.text)
-    row = execute(make_task(tmp_path, "run", GOOD, tmp_path))
+    # max_steps counts the steps of every segment: 7 before the interruption, 5 more now
+    row = execute(make_task(tmp_path, "run", GOOD.replace("max_steps = 5", "max_steps = 12"), tmp_path))
     assert row["status"] == "finished" and row.get("resumed")
     summary = json.loads((tmp_path / "run" / "summary.json").read_text())
-    assert summary["iterations"] == 12  # 7 before the interruption + max_steps = 5
+    assert summary["iterations"] == 12
+    assert [(seg["from_step"], seg["to_step"]) for seg in summary["segments"]] == [(7, 12)]
     assert not (tmp_path / "run" / "checkpoint.h5").exists()

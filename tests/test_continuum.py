@@ -13,7 +13,6 @@ from solitons.config import ConfigError
 from solitons.continuum import read_continuum_table
 from solitons.extrapolation import fit_power_limit
 
-ROOT = Path(__file__).resolve().parents[1]
 SPACINGS = [0.2, 0.16, 0.125, 0.1]
 
 
@@ -90,7 +89,7 @@ def test_continuum_command_end_to_end(tmp_path):
                       "[continuum]\nspacings = [0.4, 0.3, 0.25]\n")
     out = tmp_path / "out"
     proc = subprocess.run([sys.executable, "-m", "solitons.cli", "continuum", str(config), "--out", str(out),
-                           "--quiet"], capture_output=True, text=True, cwd=ROOT, check=False)
+                           "--quiet"], capture_output=True, text=True, cwd=tmp_path, check=False)
     assert proc.returncode in (0, 1), proc.stderr
     report = json.loads((out / "continuum.json").read_text())
     levels = report["levels"]

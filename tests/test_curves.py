@@ -25,7 +25,7 @@ def test_hopf_map_position_curve_is_the_unit_circle():
 @pytest.mark.parametrize("a, b", [(1, 1), (2, 1), (3, 1), (1, 2), (2, 2), (4, 1)])
 def test_linking_of_two_preimages_equals_the_charge(a, b):
     """The preimages of two regular values link |Q| times (Pontryagin; textbook fact,
-    REFERENCES.md), Q = a b for the axial maps (Sutcliffe 2007).  Oriented along B the
+    docs/references.md [R7]), Q = a b for the axial maps (Sutcliffe 2007).  Oriented along B the
     Gauss linking number is the bare Whitehead integral (helicity), which our sign
     convention negates, so it reads -a b (derived; the bare sign is checked in
     test_topology.py).  Values +e1 and -e2 are regular for these maps (for b > 1, -e3 is

@@ -3,7 +3,6 @@
 import json
 import subprocess
 import sys
-from pathlib import Path
 
 import numpy as np
 
@@ -11,7 +10,6 @@ from solitons.diagnose import assess, boundary_energy_fraction, core_thickness
 from solitons.grid import Grid
 from solitons.initial import hopf_map
 
-ROOT = Path(__file__).parents[1]
 GRID = Grid.centred(33, 0.25, "fixed")
 
 
@@ -69,7 +67,7 @@ def test_demo_command_runs(tmp_path):
     out = tmp_path / "demo"
     proc = subprocess.run([sys.executable, "-m", "solitons.cli", "demo", "--out", str(out), "--quiet",
                            "grid.points=41", "relax.max_steps=5"],
-                          capture_output=True, text=True, cwd=ROOT)
+                          capture_output=True, text=True, cwd=tmp_path)
     assert proc.returncode == 1  # five steps cannot converge, and the run says so
     assert "NOT CONVERGED" in proc.stdout and proc.stderr == ""
     summary = json.loads((out / "summary.json").read_text())

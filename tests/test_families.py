@@ -10,7 +10,7 @@ from solitons.initial import add_noise, euler_rotation, expected_charge, initial
 from solitons.topology import hopf_charge
 
 # 96^3, h = 0.125 (box side 11.9), fixed border: fine enough for the knot maps at size 1.5
-# (a (3, 2) knot map at size 1 reads only 4.2 at 128^3, REFERENCES.md).
+# (a (3, 2) knot map at size 1 reads only 4.2 at 128^3, docs/references.md [R6]).
 GRID = Grid.centred(96, 0.125, "fixed")
 
 FAMILIES = [

@@ -3,7 +3,6 @@
 import subprocess
 import sys
 import xml.etree.ElementTree as ET
-from pathlib import Path
 
 import h5py
 import matplotlib.image
@@ -17,7 +16,6 @@ from solitons.initial import axial_map
 from solitons.io import read_result
 from solitons.plots import euler_characteristic, isosurface_mesh, write_figures
 
-ROOT = Path(__file__).parents[1]
 SIZES = {"slices.png": (880, 1430), "isosurface.png": (825, 880), "curves.png": (660, 1430),
          "history.png": (880, 1320)}  # (height, width) = figsize * 110 dpi
 
@@ -74,21 +72,21 @@ def test_relax_writes_figures_and_show_command(relaxed, tmp_path):
     config.write_text("[grid]\npoints = 25\nspacing = 0.32\n[relax]\nmax_steps = 3\n")
     out = tmp_path / "run"
     proc = subprocess.run([sys.executable, "-m", "solitons.cli", "relax", str(config), "--out", str(out),
-                           "--quiet"], capture_output=True, text=True, cwd=ROOT)
+                           "--quiet"], capture_output=True, text=True, cwd=tmp_path)
     assert proc.returncode == 1, proc.stderr
     assert all((out / name).exists() for name in SIZES)
     shown = tmp_path / "shown"
     proc = subprocess.run([sys.executable, "-m", "solitons.cli", "show", str(relaxed / "result.h5"),
-                           "--out", str(shown)], capture_output=True, text=True, cwd=ROOT)
+                           "--out", str(shown)], capture_output=True, text=True, cwd=tmp_path)
     assert proc.returncode == 0, proc.stderr
     assert all((shown / name).exists() for name in SIZES)
     proc = subprocess.run([sys.executable, "-m", "solitons.cli", "gallery", str(relaxed / "result.h5"),
                            str(out / "result.h5"), "--out", str(tmp_path / "g.png")],
-                          capture_output=True, text=True, cwd=ROOT)
+                          capture_output=True, text=True, cwd=tmp_path)
     assert proc.returncode == 0, proc.stderr
     assert matplotlib.image.imread(tmp_path / "g.png")[..., :3].std() > 0.01
     missing = subprocess.run([sys.executable, "-m", "solitons.cli", "show", str(tmp_path / "nope.h5")],
-                             capture_output=True, text=True, cwd=ROOT)
+                             capture_output=True, text=True, cwd=tmp_path)
     assert missing.returncode == 2 and "nope.h5" in missing.stderr
 
 

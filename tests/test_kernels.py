@@ -5,7 +5,6 @@ import json
 import os
 import subprocess
 import sys
-from pathlib import Path
 
 import jax.numpy as jnp
 import numpy as np
@@ -16,8 +15,6 @@ from solitons.grid import Grid
 from solitons.initial import add_noise, hopf_map
 from solitons.minimise import StoppingRule, minimise
 from solitons.terms import BUILTIN_TERMS, Term
-
-ROOT = Path(__file__).parents[1]
 
 
 def model_pair(grid, scheme, c2=1.3, c4=0.7):
@@ -127,11 +124,11 @@ print(json.dumps({"devices": len(jax.devices()), "shards": len(g2.sharding.devic
 """
 
 
-def test_sharded_jax_route_gives_the_same_energy():
+def test_sharded_jax_route_gives_the_same_energy(tmp_path):
     """Two host devices (XLA_FLAGS, common practice for testing jax.sharding on one
     machine): same energy and gradient to 1e-12."""
     env = dict(os.environ, XLA_FLAGS="--xla_force_host_platform_device_count=2")
-    done = subprocess.run([sys.executable, "-c", SHARDED], capture_output=True, text=True, env=env, cwd=ROOT,
+    done = subprocess.run([sys.executable, "-c", SHARDED], capture_output=True, text=True, env=env, cwd=tmp_path,
                           timeout=300)
     assert done.returncode == 0, done.stderr
     result = json.loads(done.stdout.strip().splitlines()[-1])

@@ -8,6 +8,7 @@ from solitons.energy import Model
 from solitons.grid import Grid
 from solitons.initial import add_noise, hopf_map
 from solitons.minimise import StoppingRule, minimise
+from solitons.outcomes import Outcome
 from solitons.terms import Term, TermKind
 
 # Side 8, h = 0.2: Q = 1 stays wound here (measured: at h = 0.25 in a box of side 7.75
@@ -65,7 +66,7 @@ def test_gradient_flow_descends():
 
 def test_non_finite_energy_stops_and_keeps_last_finite_state():
     """A density that is NaN below n3 = 0.9 while its minimum pulls n3 down: the run must
-    stop with status non_finite and return a finite field."""
+    stop with status non-finite and return a finite field."""
     def broken(n, d, lap=None):
         return jnp.sqrt(n[..., 2] - 0.9) + 0.0 * jnp.sum(d, axis=(-2, -1))
 
@@ -78,14 +79,15 @@ def test_non_finite_energy_stops_and_keeps_last_finite_state():
     for method in ("arrested_newton", "gradient_flow", "lbfgs", "scipy_lbfgs"):
         result = minimise(model, field, method, StoppingRule(max_steps=500, force_tol=0.0),
                           time_step=5.0 if "lbfgs" not in method else None)
-        assert result.status == "non_finite", method
+        assert result.status == Outcome.NON_FINITE, method
         assert np.all(np.isfinite(result.field))
 
 
 def test_resumed_history_continues_step_count():
     model = skyrme_faddeev_model(GRID)
     first = minimise(model, start_field(), "lbfgs", StoppingRule(max_steps=10, force_tol=0.0))
-    second = minimise(model, first.field, "lbfgs", StoppingRule(max_steps=10, force_tol=0.0),
+    # max_steps counts the steps before the resume too
+    second = minimise(model, first.field, "lbfgs", StoppingRule(max_steps=20, force_tol=0.0),
                       history=first.history, start_step=first.steps)
     assert second.steps == 20
     assert second.history.step == list(range(1, 21))

@@ -107,7 +107,8 @@ TILTED = '''
 import jax.numpy as jnp
 
 def tilted_laplacian(n, d, lap=None, b=0.3):
-    return b * (1.0 - n[..., 0]) + 0.1 * jnp.sum(lap * lap, axis=-1)
+    # an easy-plane-like potential, zero in the vacuum, not symmetric about e3
+    return b * n[..., 0] ** 2 + 0.1 * jnp.sum(lap * lap, axis=-1)
 '''
 
 

@@ -6,7 +6,6 @@ checked in test_verdicts.py with its sources."""
 import csv
 import subprocess
 import sys
-from pathlib import Path
 
 import matplotlib.image
 import pytest
@@ -14,12 +13,12 @@ import pytest
 from solitons.campaigns import read_scan_table, run_scan
 from solitons.config import ConfigError
 
-ROOT = Path(__file__).parents[1]
-
 SCAN = """
 [grid]
 points = 33
 spacing = 0.25
+[terms.dirichlet]
+[terms.skyrme_faddeev]
 [terms.mass]
 kind = "potential"
 coupling = 0.0
@@ -66,6 +65,44 @@ def test_scan_command_prints_table(tmp_path):
     config.write_text(SCAN.replace("CONT", "false").replace("[0.0, 0.5]", "[0.25]"))
     proc = subprocess.run([sys.executable, "-m", "solitons.cli", "scan", str(config), "--out",
                            str(tmp_path / "o"), "--quiet", "--no-figures"],
-                          capture_output=True, text=True, cwd=ROOT)
+                          capture_output=True, text=True, cwd=tmp_path)
     assert proc.returncode == 0, proc.stderr
     assert "terms.mass.coupling | E" in proc.stdout and "scan.csv" in proc.stdout
+
+
+def test_changed_user_file_is_recomputed_and_recorded(tmp_path):
+    """A rerun skips a point only when nothing that decides its numbers changed: editing
+    the user-term file makes the point run again, and the result holds the file's content
+    and hash, the library versions, and a catalogue path relative to the catalogue."""
+    import hashlib
+    import json
+    import sqlite3
+
+    import h5py
+
+    term = tmp_path / "mass.py"
+    term.write_text("def density(n, d, lap=None, m=1.0):\n    return m * (1.0 - n[..., 2])\n")
+    config = tmp_path / "scan.toml"
+    config.write_text(SCAN.replace("CONT", "true").replace('kind = "potential"', 'kind = "user"\nfile = "mass.py"')
+                      .replace("values = [0.0, 0.5]", "values = [0.5]"))
+    out = tmp_path / "out"
+    first = run_scan(config, out, stream=None, figures=False)
+    assert run_scan(config, out, stream=None, figures=False)[0]["skipped"]
+    term.write_text("def density(n, d, lap=None, m=1.0):\n    return 2.0 * m * (1.0 - n[..., 2])\n")
+    edited = run_scan(config, out, stream=None, figures=False)
+    assert not edited[0]["skipped"]
+    # the edited file is the built-in potential at twice the coupling: the same 15 steps
+    builtin = tmp_path / "builtin.toml"
+    builtin.write_text(SCAN.replace("CONT", "true").replace("values = [0.0, 0.5]", "values = [1.0]"))
+    reference = run_scan(builtin, tmp_path / "reference", stream=None, figures=False)
+    assert edited[0]["energy"] == pytest.approx(reference[0]["energy"], rel=1e-10)
+    assert abs(edited[0]["energy"] - first[0]["energy"]) > 1e-3
+    with h5py.File(out / "points" / "000" / "result.h5") as h5:
+        record = json.loads(h5.attrs["provenance"])
+    (entry,) = record["user_terms"]
+    assert entry["sha256"] == hashlib.sha256(term.read_bytes()).hexdigest() and "2.0 * m" in entry["content"]
+    assert {"jax", "numba", "numpy", "scipy"} <= set(record["libraries"]) and record["libraries"]["numpy"]
+    with sqlite3.connect(out / "catalogue.sqlite") as db:
+        path, provenance = db.execute("SELECT path, provenance FROM runs").fetchone()
+    assert path == "points/000" and (out / path / "result.h5").exists()
+    assert json.loads(provenance)["user_terms"][0]["sha256"] == entry["sha256"]

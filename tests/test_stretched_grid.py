@@ -5,7 +5,6 @@ the charge and the curves, and the run path end to end."""
 import json
 import subprocess
 import sys
-from pathlib import Path
 
 import h5py
 import jax.numpy as jnp
@@ -21,8 +20,6 @@ from solitons.io import read_result
 from solitons.knots import solution_label
 from solitons.minimise import StoppingRule, minimise
 from solitons.topology import hopf_charge
-
-ROOT = Path(__file__).parents[1]
 
 
 def gaussian_field(grid: Grid) -> np.ndarray:
@@ -194,7 +191,7 @@ def test_stretched_run_end_to_end(tmp_path):
     config.write_text(SMALL)
     out = tmp_path / "run"
     proc = subprocess.run([sys.executable, "-m", "solitons.cli", "relax", str(config), "--out", str(out)],
-                          capture_output=True, text=True, cwd=ROOT)
+                          capture_output=True, text=True, cwd=tmp_path)
     assert proc.returncode in (0, 1), proc.stderr
     assert "stretch" in proc.stdout
     summary = json.loads((out / "summary.json").read_text())

@@ -3,7 +3,6 @@ rerun skip, input errors.  Mechanics; the energies of Q = 1, 2 against the publi
 are checked on fine grids in test_published_energies.py."""
 
 import csv
-import math
 
 import matplotlib.image
 import pytest
@@ -11,7 +10,7 @@ import pytest
 from solitons import catalogue
 from solitons.cli import main
 from solitons.config import ConfigError
-from solitons.survey import VAKULENKO_KAPITANSKI, read_survey
+from solitons.survey import read_survey
 
 SURVEY = """
 [grid]
@@ -24,11 +23,6 @@ checkpoint_every = 0
 [survey]
 charges = [1, 2, 3]
 """
-
-
-def test_bound_constant():
-    """(3/16)^(3/8) = 0.534 (REFERENCES.md, memory of the Kundu-Rybakov constant)."""
-    assert math.isclose(VAKULENKO_KAPITANSKI, 0.534, abs_tol=5e-4)
 
 
 def test_survey_q1_to_3_end_to_end(tmp_path, capsys):
@@ -46,8 +40,14 @@ def test_survey_q1_to_3_end_to_end(tmp_path, capsys):
     for r in rows:
         q, energy = int(r["Q"]), float(r["energy"])
         assert abs(float(r["measured_Q"]) - q) < 0.1 * q
-        assert math.isclose(float(r["energy_per_q34"]), energy / q**0.75)
+        # every field of charge Q has E >= c Q^(3/4) (Vakulenko & Kapitanski 1979; the
+        # constant in this normalisation, (3/16)^(3/8) = 0.534, after Kundu & Rybakov 1982
+        # - both recalled, docs/references.md [R9])
+        assert energy >= 0.534 * q**0.75
         assert r["label"].startswith("A:unknot")
+    energies = [float(r["energy"]) for r in rows]
+    # growth like Q^(3/4), below Q E(1) (Battye & Sutcliffe 1999, Proc. R. Soc. A 455, 4305; recalled)
+    assert energies[0] < energies[1] < energies[2] < 3 * energies[0]
     table = (out / "survey.md").read_text()
     assert "grid 33x33x33, spacing h = 0.25" in table and "fourth-order stencil" in table
     assert table.count("| axial(") == 3

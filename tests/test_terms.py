@@ -37,7 +37,7 @@ def test_gradient_matches_finite_difference(kind, rng):
 
 @pytest.mark.parametrize("kind", [k for k in KINDS if BUILTIN_TERMS[k].derivatives is not None])
 def test_derrick_weight_on_analytic_field(kind):
-    """E_term[n(lambda x)] = lambda^(d - 3) E_term[n] (Derrick; REFERENCES.md), with
+    """E_term[n(lambda x)] = lambda^(d - 3) E_term[n] (Derrick; docs/references.md [R10]), with
     n(lambda x) the Hopf map of size 1/lambda on the same fine grid; tolerance 5e-3 covers
     the sixth-order scheme's lattice error at h = 0.1 (largest measured: 1.4e-3 for the
     sextic term; the compact profile's kinks at r = 0 and r = R limit it), far below the
@@ -56,7 +56,7 @@ def test_derrick_weight_on_analytic_field(kind):
 def test_virial_equals_derrick_derivative(kind):
     """sum_a h_a dE/dh_a (autodiff) equals -dE[n(lambda x)]/dlambda at lambda = 1, taken
     here by a central finite difference over Hopf maps of size 1/lambda (derived; the
-    identity of ARCHITECTURE.md).  Holds for the non-homogeneous log term as well; the
+    identity docs/references.md [R10]).  Holds for the non-homogeneous log term as well; the
     residual is the lattice error's dependence on the size (sixth-order scheme, h = 0.1:
     largest measured 1.3e-3, for the quartic terms)."""
     grid = Grid.centred(81, 0.1, "fixed")
@@ -82,7 +82,7 @@ def test_fast_route_equals_generic(kind):
 
 def test_quartic_identities_on_random_strains(rng):
     """strain_squared = dirichlet_squared - 2 skyrme_faddeev pointwise for unit fields
-    (derived from the rank-2 strain, REFERENCES.md)."""
+    (derived from the rank-2 strain, docs/references.md [R19])."""
     grid = Grid.centred(12, 0.4, "periodic")
     field = add_noise(hopf_map(grid, 1.0), grid, 0.3, 9)
     e = {k: Model(single(k), grid).energies(field)[k]

@@ -11,14 +11,14 @@ GRID = Grid.centred(64, 0.125, "fixed")  # box side 7.875, the stated grid for t
 
 
 def test_hopf_map_has_charge_plus_one():
-    """The Hopf map W = Z1/Z0 has Q = 1 (Sutcliffe 2007, arXiv:0705.1468; REFERENCES.md).
+    """The Hopf map W = Z1/Z0 has Q = 1 (Sutcliffe 2007, arXiv:0705.1468; docs/references.md [R5, R6]).
     Spectral derivatives make it exact far beyond the 2 % the issue asks."""
     assert abs(hopf_charge(hopf_map(GRID, 1.0), GRID) - 1.0) < 1e-6
 
 
 @pytest.mark.parametrize("a, b", [(2, 1), (1, 2), (2, 2), (3, 1), (1, 3)])
 def test_axial_maps_have_charge_a_times_b(a, b):
-    """W = Z1^a / Z0^b has Q = a b (Sutcliffe 2007, memory; REFERENCES.md); within 2 %."""
+    """W = Z1^a / Z0^b has Q = a b (Sutcliffe 2007, recalled; docs/references.md [R6]); within 2 %."""
     charge = hopf_charge(axial_map(GRID, a, b, 1.0), GRID)
     assert abs(charge - a * b) < 0.02 * a * b
 

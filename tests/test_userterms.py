@@ -2,7 +2,6 @@
 
 import subprocess
 import sys
-from pathlib import Path
 
 import jax.numpy as jnp
 import numpy as np
@@ -15,8 +14,6 @@ from solitons.grid import Grid
 from solitons.initial import add_noise, hopf_map
 from solitons.terms import BUILTIN_TERMS, Term
 from solitons.userterms import UserTermError, load_user_term
-
-ROOT = Path(__file__).parents[1]
 
 COPY = '''
 import jax.numpy as jnp
@@ -101,7 +98,7 @@ def test_config_with_user_term_and_cli_error(user_file, tmp_path):
     assert abs(model.energies(field)["mine"] - expected) < 1e-12
     proc = subprocess.run([sys.executable, "-m", "solitons.cli", "relax", str(config), "--out",
                            str(tmp_path / "out"), "terms.mine.function=vector_valued"],
-                          capture_output=True, text=True, cwd=ROOT)
+                          capture_output=True, text=True, cwd=tmp_path)
     assert proc.returncode == 2
     assert "my_terms.py:vector_valued" in proc.stderr and len(proc.stderr.strip().splitlines()) == 1
     assert not (tmp_path / "out").exists()

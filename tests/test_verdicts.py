@@ -2,6 +2,7 @@
 Q = 1 and makes it smaller; the lattice is named when it decides.  Box of side 8 (41^3,
 h = 0.2, fixed border) unless said."""
 
+import numpy as np
 import pytest
 
 from solitons.config import load
@@ -17,7 +18,7 @@ def run(tmp_path, extra, steps=400):
 
 def test_two_derivative_term_alone_collapses(tmp_path):
     """Derrick: E2 scales as lambda^-1, so with no quartic term a texture lowers its energy
-    by shrinking; on the lattice it thins to the spacing and unwinds (REFERENCES.md)."""
+    by shrinking; on the lattice it thins to the spacing and unwinds (docs/references.md [R11])."""
     summary = run(tmp_path, ["terms.skyrme_faddeev.coupling=0"], steps=200)
     assert summary["verdict"] == "collapsed"
     assert summary["evidence"]["min_thickness_over_spacing"] <= 2.0
@@ -27,7 +28,7 @@ def test_two_derivative_term_alone_collapses(tmp_path):
 @pytest.mark.parametrize("points", [33, 41, 49])
 def test_quartic_term_alone_spreads(tmp_path, scheme, points):
     """Derrick: E4 scales as lambda^+1, so alone it makes the soliton grow until the box
-    stops it (REFERENCES.md); on every scheme and box (sides 6.4, 8, 9.6 at h = 0.2).  The
+    stops it (docs/references.md [R11]); on every scheme and box (sides 6.4, 8, 9.6 at h = 0.2).  The
     former Richardson fourth-order scheme ran to E = -7.86 here (41^3) with verdict
     `unbounded`."""
     summary = run(tmp_path, ["terms.dirichlet.coupling=0", f"grid.points={points}", f'grid.scheme="{scheme}"'],
@@ -58,8 +59,33 @@ def test_both_terms_give_a_stable_charge_one_soliton(tmp_path):
 
 @pytest.mark.parametrize("b", [-0.3, -0.05])
 def test_quartic_combination_outside_the_bound_is_never_stable(tmp_path, b):
-    """H^2 + b (dn.dn)^2 is not bounded below for b < 0 (derived criterion, REFERENCES.md);
-    whatever the relaxation does, the verdict must not be stable."""
+    """H^2 + b (dn.dn)^2 is not bounded below for b < 0 (derived).  A witness that does not
+    use the tool's probe: on a periodic lattice the twist n = (sin kx, 0, cos kx) has
+    H^2 = 0 and, with the second-order scheme, |D_x n|^2 = (2 sin(kh/2) / h)^2 = k_h^2 at
+    every site exactly, so E = N V (k_h^2 + b k_h^4) (N the normalisation, V the box
+    volume): negative once k_h^2 > 1/|b| and without lower bound as k grows.  The model
+    must evaluate exactly that, and no relaxation of the model may be called stable."""
+    from solitons.energy import NORMALISATION, Model
+    from solitons.grid import Grid
+    from solitons.terms import BUILTIN_TERMS, Term
+
+    grid = Grid.centred(32, 0.05, "periodic")
+    terms = (Term("dirichlet", BUILTIN_TERMS["dirichlet"]), Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"]),
+             Term("ext", BUILTIN_TERMS["dirichlet_squared"], b))
+    model = Model(terms, grid, "second")
+    x = grid.mesh()[0]
+    volume = (32 * 0.05) ** 3
+    energies = []
+    for m in (1, 2, 4, 6):
+        k = 2 * np.pi * m / (32 * 0.05)
+        field = np.stack((np.sin(k * x), np.zeros_like(x), np.cos(k * x)), axis=-1)
+        k_h2 = (2 * np.sin(k * 0.05 / 2) / 0.05) ** 2
+        parts = model.energies(field)
+        assert parts["dirichlet"] == pytest.approx(NORMALISATION * volume * k_h2, rel=1e-12)
+        assert parts["ext"] == pytest.approx(NORMALISATION * volume * b * k_h2**2, rel=1e-12)
+        assert abs(parts["skyrme_faddeev"]) < 1e-12 * parts["dirichlet"]
+        energies.append(sum(parts.values()))
+    assert energies[-1] < 0 and energies[-1] < energies[-2]  # below the vacuum, and falling with k
     summary = run(tmp_path, ['terms.ext.kind="dirichlet_squared"', f"terms.ext.coupling={b}"], steps=60)
     assert summary["verdict"] != "stable"
     assert summary["bounded_below_probe"]["negative"]
