@@ -16,10 +16,13 @@ for scans with continuation, where each point starts from the previous one).
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
+import signal
 import socket
 import sys
+import threading
 import time
 import traceback
 from pathlib import Path
@@ -94,6 +97,24 @@ def execute(task: dict) -> dict:
     return row
 
 
+@contextlib.contextmanager
+def _sigint_ignored_by_workers():
+    """Ignore SIGINT while the local cluster starts, so that its worker processes inherit
+    the ignored disposition (an ignored signal stays ignored across exec; Python then
+    installs no KeyboardInterrupt handler).  A Ctrl-C from the terminal goes to the whole
+    process group; with this only the command's own process answers it and closes the
+    cluster in order (a worker that died of it made its nanny log a traceback).  The
+    price: a Ctrl-C during the few seconds of cluster start-up is ignored."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
 def run_tasks(tasks: list[dict], scheduler: str | None = None, workers: int | None = None,
               stream: TextIO | None = sys.stderr, describe: Callable[[dict], str] | None = None,
               function: Callable[[dict], dict] = execute) -> list[dict]:
@@ -130,9 +151,10 @@ def run_tasks(tasks: list[dict], scheduler: str | None = None, workers: int | No
     cluster = None
     if scheduler is None:
         n = workers or len(os.sched_getaffinity(0))
-        cluster = LocalCluster(n_workers=min(n, len(tasks)), threads_per_worker=1, processes=True,
-                               dashboard_address=":0", env=dict(SINGLE_THREAD_ENV), silence_logs=40)
-        client = Client(cluster)
+        with _sigint_ignored_by_workers():
+            cluster = LocalCluster(n_workers=min(n, len(tasks)), threads_per_worker=1, processes=True,
+                                   dashboard_address=":0", env=dict(SINGLE_THREAD_ENV), silence_logs=40)
+            client = Client(cluster)
     else:
         client = Client(scheduler)
     try:
