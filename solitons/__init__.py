@@ -21,3 +21,15 @@ finally:
         _signal.signal(_s, _h)
 
 __version__ = "0.1.0"
+
+__all__ = ["Result", "load", "relax"]
+
+
+def __getattr__(name):
+    """`relax`, `load` and `Result` (solitons.api), imported on first use so that the
+    command's --help and its signal handling start before numba loads."""
+    if name in __all__:
+        from solitons import api
+
+        return getattr(api, name)
+    raise AttributeError(f"module 'solitons' has no attribute {name!r}")

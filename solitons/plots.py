@@ -6,11 +6,13 @@ these functions at the edge.
 
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 
 import matplotlib
 
-matplotlib.use("Agg")
+if "ipykernel" not in sys.modules:  # a notebook keeps its inline backend (figures shown)
+    matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 from matplotlib import colors  # noqa: E402
@@ -296,8 +298,12 @@ def plot_continuum(report: dict, path) -> Path:
     return save_figure(fig, path)
 
 
-def save_figure(fig, path) -> Path:
-    """Write a PNG atomically (temporary name, then rename) and close the figure."""
+def save_figure(fig, path):
+    """Write a PNG atomically (temporary name, then rename) and close the figure; with
+    ``path`` None return the figure instead (the Python API's `Result.figures`)."""
+    if path is None:
+        plt.close(fig)  # out of pyplot's keeping; the object still draws and displays
+        return fig
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(f".{path.name}.tmp.png")

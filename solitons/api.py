@@ -1,0 +1,183 @@
+"""The Python entry points, for notebooks and scripts: `relax`, `load` and `Result`.
+
+    import solitons
+    result = solitons.relax(grid={"points": 41, "spacing": 0.25})   # Q = 1, plain model
+    result.energy, result.charge, result.virial, result.verdict
+    figures = result.figures()                                       # matplotlib figures
+
+`relax` takes the configuration as a path, TOML text, a dict (the TOML tables) or
+nothing (the defaults), and overrides as keyword arguments, one per table
+(``grid={"points": 48}``, ``terms={"mass": {"kind": "potential", "coupling": 0.5}}``).
+It writes files only when ``out`` is given; otherwise it relaxes in a temporary directory
+and keeps the result in memory.  Errors are the command's: `solitons.config.ConfigError`
+for bad input (naming key and value), `solitons.driver.RunError` when a run cannot start.
+"""
+
+from __future__ import annotations
+
+import sys
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from solitons.grid import Grid
+
+
+@dataclass(frozen=True)
+class Result:
+    """A relaxed configuration: the summary (energies, charge, virial, verdict, evidence,
+    warnings, provenance), the field on its grid, the energy density, the history of the
+    relaxation, the merged configuration text and, if it was written, the directory."""
+
+    summary: dict
+    field: np.ndarray        # (Nx, Ny, Nz, 3) unit vectors
+    grid: Grid
+    energy_density: np.ndarray  # (Nx, Ny, Nz), normalised energy per unit volume
+    history: dict            # per-step arrays: step, energy, force, seconds; monitor values
+    config: str              # the merged configuration (TOML)
+    path: Path | None = None
+
+    @property
+    def energy(self) -> float:
+        """Total energy in Battye-Sutcliffe units (docs/references.md [R1])."""
+        return float(self.summary["energy"])
+
+    @property
+    def terms(self) -> dict[str, float]:
+        return dict(self.summary["terms"])
+
+    @property
+    def charge(self) -> float:
+        """Hopf charge by the Whitehead integral."""
+        return float(self.summary["hopf_charge"])
+
+    @property
+    def virial(self) -> float:
+        """Derrick residual sum_a h_a dE/dh_a / E (0 at a stationary point in infinite space)."""
+        return float(self.summary["virial"])
+
+    @property
+    def verdict(self) -> str:
+        return str(self.summary["verdict"])
+
+    @property
+    def evidence(self) -> dict:
+        return dict(self.summary["evidence"])
+
+    @property
+    def warnings(self) -> list[str]:
+        return list(self.summary["warnings"])
+
+    @property
+    def converged(self) -> bool:
+        return bool(self.summary["converged"])
+
+    def figures(self, level: float | None = None) -> dict[str, Any]:
+        """The run's figures as matplotlib Figure objects (nothing is written): slices,
+        isosurface (n3 = level, default -0.8), curves, history."""
+        from solitons import plots
+
+        level = plots.DEFAULT_LEVEL if level is None else level
+        meta = {"label": self.summary.get("label"), "hopf_charge": self.charge, "energy": self.energy}
+        return {
+            "slices": plots.plot_slices(self.field, self.grid, self.energy_density, None, meta),
+            "isosurface": plots.plot_isosurface(self.field, self.grid, None, meta, level),
+            "curves": plots.plot_curves(self.field, self.grid, None, meta),
+            "history": plots.plot_history(self.history, None, meta),
+        }
+
+    def to_xarray(self):
+        """The field and the energy density as an xarray Dataset on the site coordinates
+        x, y, z (physical positions, stretched grids included), with units and the
+        normalisation in attributes and the summary's main numbers as dataset attributes."""
+        import xarray as xr
+
+        x, y, z = self.grid.axes()
+        coords = {"x": ("x", x, {"units": "model length"}), "y": ("y", y, {"units": "model length"}),
+                  "z": ("z", z, {"units": "model length"}), "component": ("component", ["n1", "n2", "n3"])}
+        data = {
+            "n": (("x", "y", "z", "component"), self.field,
+                  {"long_name": "unit-vector field n", "units": "1"}),
+            "energy_density": (("x", "y", "z"), self.energy_density,
+                               {"long_name": "energy density", "units": "energy / model length^3",
+                                "normalisation": self.summary.get("normalisation", "")}),
+        }
+        attrs = {"energy": self.energy, "hopf_charge": self.charge, "virial": self.virial,
+                 "verdict": self.verdict, "spacing": list(self.grid.spacing), "boundary": self.grid.boundary,
+                 "stretch": list(self.grid.stretch), "config": self.config}
+        return xr.Dataset(data, coords=coords, attrs=attrs)
+
+    def __repr__(self) -> str:
+        return (f"Result(E = {self.energy:.6f}, Q = {self.charge:.4f}, virial = {self.virial:+.4f}, "
+                f"verdict = {self.verdict!r}, grid = {'x'.join(map(str, self.grid.shape))})")
+
+
+def load(path: str | Path) -> Result:
+    """A result written by `relax` or the command: ``path`` is a result.h5 file or the
+    run directory holding one."""
+    from solitons.io import read_result
+
+    path = Path(path)
+    if path.is_dir():
+        path = path / "result.h5"
+    data = read_result(path)
+    return Result(data["summary"], data["field"], data["grid"], data["energy_density"], data["history"],
+                  data["config"], path.parent)
+
+
+def _overrides(tables: dict[str, Any]) -> list[str]:
+    from solitons.config import toml_inline
+
+    items = []
+    for table, entries in tables.items():
+        if not isinstance(entries, dict):
+            items.append(f"{table}={toml_inline(entries)}")  # let the config name the problem
+            continue
+        for key, value in entries.items():
+            if table == "terms" and isinstance(value, dict):
+                items += [f"terms.{key}.{sub}={toml_inline(v)}" for sub, v in value.items()]
+            else:
+                items.append(f"{table}.{key}={toml_inline(value)}")
+    return items
+
+
+def _spec(config, tables: dict[str, Any]):
+    import tomli_w
+
+    from solitons.config import load as load_config
+
+    overrides = _overrides(tables)
+    if config is None:
+        return load_config(None, overrides, text="")
+    if isinstance(config, dict):
+        return load_config(None, overrides, text=tomli_w.dumps(config))
+    if isinstance(config, Path) or (isinstance(config, str) and "\n" not in config and "=" not in config):
+        return load_config(config, overrides)
+    return load_config(None, overrides, text=str(config))
+
+
+def relax(config: str | Path | dict | None = None, out: str | Path | None = None, *, resume: bool = False,
+          overwrite: bool = False, progress: bool = False, **tables) -> Result:
+    """Relax one configuration and return its Result.
+
+    config: a TOML file path, TOML text, a dict of tables, or None (the defaults).
+    out: a directory for result.h5, summary.json and the XDMF sidecar (none is written
+    when None).  resume / overwrite: as the command's --resume / --overwrite.
+    progress: print progress lines to stderr.  Keyword arguments override tables, e.g.
+    ``grid={"points": 48}``, ``relax={"max_steps": 500}``,
+    ``terms={"mass": {"kind": "potential", "coupling": 0.5}}``."""
+    from solitons.driver import relax as run
+
+    spec = _spec(config, tables)
+    stream = sys.stderr if progress else None
+    if out is not None:
+        run(spec, out, resume=resume, overwrite=overwrite, stream=stream)
+        return load(out)
+    with tempfile.TemporaryDirectory(prefix="solitons-") as scratch:
+        run(spec, scratch, stream=stream)
+        result = load(scratch)
+    return Result(result.summary, result.field, result.grid, result.energy_density, result.history, result.config,
+                  None)
