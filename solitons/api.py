@@ -81,7 +81,8 @@ class Result:
         from solitons import plots
 
         level = plots.DEFAULT_LEVEL if level is None else level
-        meta = {"label": self.summary.get("label"), "hopf_charge": self.charge, "energy": self.energy}
+        meta = {"label": self.summary.get("label"), "hopf_charge": self.charge, "energy": self.energy,
+                "model": self.summary.get("model")}
         return {
             "slices": plots.plot_slices(self.field, self.grid, self.energy_density, None, meta),
             "isosurface": plots.plot_isosurface(self.field, self.grid, None, meta, level),

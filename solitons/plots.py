@@ -40,6 +40,7 @@ def energy_centre(density: np.ndarray, grid: Grid) -> np.ndarray:
 
 
 def _title_text(meta: dict) -> str:
+    """Label, charge and energy; the model (terms and couplings) on a second line."""
     parts = []
     if meta.get("label"):
         parts.append(meta["label"])
@@ -47,7 +48,27 @@ def _title_text(meta: dict) -> str:
         parts.append(f"Q = {meta['hopf_charge']:.3f}")
     if meta.get("energy") is not None:
         parts.append(f"E = {meta['energy']:.4f}")
-    return "   ".join(parts)
+    text = "   ".join(parts)
+    if meta.get("model"):
+        text += f"\nmodel: {meta['model']}"
+    return text
+
+
+def soliton_window(field, grid: Grid, density, margin: float = 0.3) -> list[tuple[float, float]]:
+    """Per axis, the physical interval holding the soliton: the sites where n3 < 0.9 or
+    the density exceeds 1e-3 of its maximum, widened by ``margin`` of its width on each
+    side and clipped to the box (the whole box when nothing qualifies)."""
+    inside = (np.asarray(field)[..., 2] < 0.9) | (density > 1e-3 * max(float(np.max(density)), 1e-300))
+    window = []
+    for axis, x in enumerate(grid.axes()):
+        hit = np.flatnonzero(np.any(inside, axis=tuple(a for a in range(3) if a != axis)))
+        if not len(hit):
+            window.append((float(x[0]), float(x[-1])))
+            continue
+        low, high = float(x[hit[0]]), float(x[hit[-1]])
+        pad = margin * max(high - low, 4 * grid.spacing[axis])
+        window.append((max(float(x[0]), low - pad), min(float(x[-1]), high + pad)))
+    return window
 
 
 def plot_slices(field, grid: Grid, density, path, meta: dict | None = None) -> Path:
@@ -58,6 +79,7 @@ def plot_slices(field, grid: Grid, density, path, meta: dict | None = None) -> P
     names = "xyz"
     fig, axes = plt.subplots(2, 3, figsize=(13, 8), dpi=DPI, constrained_layout=True)
     emax = float(np.max(density)) if np.max(density) > 0 else 1.0
+    window = soliton_window(field, grid, density)
     for col, normal in enumerate(range(3)):
         others = [a for a in range(3) if a != normal]
         index = [slice(None)] * 3
@@ -80,29 +102,48 @@ def plot_slices(field, grid: Grid, density, path, meta: dict | None = None) -> P
             if row == 0:
                 ax.contour(axes_coords[others[0]], axes_coords[others[1]], values.T,
                            levels=[0.0], colors="k", linewidths=0.6)
+            ax.set_xlim(*window[others[0]])
+            ax.set_ylim(*window[others[1]])
             ax.set_xlabel(names[others[0]])
             ax.set_ylabel(names[others[1]])
             ax.set_title(f"{label} on {plane}")
-            fig.colorbar(image, ax=ax, shrink=0.85)
+            bar = fig.colorbar(image, ax=ax, shrink=0.85)
+            bar.set_label("$n_3$ (dimensionless)" if row == 0 else "energy / length$^3$ (normalised)")
     spacing = ", ".join(f"{h:g}" for h in grid.spacing)
     if grid.stretched:
         spacing += " at the centre, stretch " + ", ".join(f"{s:g}" for s in grid.stretch)
-    fig.suptitle(f"{_title_text(meta)}    grid {'x'.join(map(str, grid.shape))}, h = {spacing}"
-                 f"  (model length units; black line: $n_3 = 0$)")
+    box = "x".join(f"{side:.3g}" for side in grid.side)
+    fig.suptitle(f"{_title_text(meta)}\ngrid {'x'.join(map(str, grid.shape))}, h = {spacing}, box {box} "
+                 f"(view zoomed to the soliton; model length units; black line: $n_3 = 0$)")
     return save_figure(fig, path)
 
 
-def isosurface_mesh(field, grid: Grid, level: float = DEFAULT_LEVEL):
+def isosurface_mesh(field, grid: Grid, level: float = DEFAULT_LEVEL, refine: int = 1):
     """Marching-cubes mesh of n3 = level: vertices (model coordinates), faces, and the
-    phase of n1 + i n2 at every vertex."""
+    phase of n1 + i n2 at every vertex.  ``refine`` > 1 first interpolates the field
+    (cubic splines) onto a grid that many times finer, in the box around the surface
+    only: smaller facets for figures (the topology checks use refine = 1)."""
+    from scipy.ndimage import map_coordinates, zoom
+
     n3 = field[..., 2]
     if not (n3.min() < level < n3.max()):
         return np.zeros((0, 3)), np.zeros((0, 3), int), np.zeros(0)
-    verts, faces, _, _ = marching_cubes(n3, level)
-    from scipy.ndimage import map_coordinates
-
-    n1 = map_coordinates(field[..., 0], verts.T, order=1)
-    n2 = map_coordinates(field[..., 1], verts.T, order=1)
+    offset = np.zeros(3)
+    values = field
+    if refine > 1:
+        near = np.argwhere(n3 < level + 0.5 * (1.0 - level))
+        low = np.maximum(near.min(axis=0) - 2, 0)
+        high = np.minimum(near.max(axis=0) + 3, np.array(n3.shape))
+        values = field[low[0]:high[0], low[1]:high[1], low[2]:high[2]]
+        values = np.stack([zoom(values[..., c], refine, order=3, mode="nearest") for c in range(3)], axis=-1)
+        offset = low.astype(float)
+    verts, faces, _, _ = marching_cubes(values[..., 2], level)
+    n1 = map_coordinates(values[..., 0], verts.T, order=1)
+    n2 = map_coordinates(values[..., 1], verts.T, order=1)
+    if refine > 1:  # fine index -> coarse fractional index (zoom maps the end points onto each other)
+        counts = np.array(values.shape[:3], dtype=float)
+        coarse = (high - low - 1).astype(float)
+        verts = offset + verts * coarse / np.maximum(counts - 1, 1)
     coords = grid.index_to_position(verts)
     return coords, faces, np.arctan2(n2, n1)
 
@@ -133,11 +174,17 @@ def euler_characteristic(faces: np.ndarray) -> tuple[int, bool, int]:
 
 
 def _shade(verts, faces, phase_at_faces):
-    normals = np.cross(verts[faces[:, 1]] - verts[faces[:, 0]], verts[faces[:, 2]] - verts[faces[:, 0]])
-    normals /= np.maximum(np.linalg.norm(normals, axis=1, keepdims=True), 1e-300)
+    """Face colours: the phase colour times a Lambert brightness from vertex normals
+    (area-weighted means of the adjacent faces' normals, averaged over each face's
+    corners), which hides the facets that face normals show at h = 0.2."""
+    face_normals = np.cross(verts[faces[:, 1]] - verts[faces[:, 0]], verts[faces[:, 2]] - verts[faces[:, 0]])
+    vertex_normals = np.zeros_like(verts)
+    for corner in range(3):
+        np.add.at(vertex_normals, faces[:, corner], face_normals)
+    vertex_normals /= np.maximum(np.linalg.norm(vertex_normals, axis=1, keepdims=True), 1e-300)
     light = np.array([0.4, -0.5, 0.75])
     light /= np.linalg.norm(light)
-    brightness = 0.45 + 0.55 * np.abs(normals @ light)
+    brightness = (0.45 + 0.55 * np.abs(vertex_normals @ light))[faces].mean(axis=1)
     rgba = plt.get_cmap("hsv")((phase_at_faces + np.pi) / (2 * np.pi))
     rgba[:, :3] *= brightness[:, None]
     return rgba
@@ -148,20 +195,20 @@ def _set_equal_3d(ax, points):
     radius = 0.55 * float(np.max(points.max(axis=0) - points.min(axis=0))) or 1.0
     for setter, c in zip((ax.set_xlim, ax.set_ylim, ax.set_zlim), centre):
         setter(c - radius, c + radius)
-    ax.set_box_aspect((1, 1, 1))
+    ax.set_box_aspect((1, 1, 1), zoom=1.15)
 
 
 def plot_isosurface(field, grid: Grid, path, meta: dict | None = None,
                     level: float = DEFAULT_LEVEL) -> Path:
     """Shaded isosurface n3 = level coloured by the phase of n1 + i n2."""
     meta = meta or {}
-    verts, faces, phase = isosurface_mesh(field, grid, level)
+    verts, faces, phase = isosurface_mesh(field, grid, level, refine=2)
     fig = plt.figure(figsize=(8, 7.5), dpi=DPI)
-    ax = fig.add_subplot(projection="3d")
+    ax = fig.add_axes((0.0, 0.0, 0.86, 0.9), projection="3d")
     if len(faces):
         face_phase = np.angle(np.exp(1j * phase[faces]).mean(axis=1))
-        poly = Poly3DCollection(verts[faces], facecolors=_shade(verts, faces, face_phase),
-                                edgecolor="none")
+        shade = _shade(verts, faces, face_phase)  # edges in the face colour hide the seams between faces
+        poly = Poly3DCollection(verts[faces], facecolors=shade, edgecolors=shade, linewidths=0.3)
         ax.add_collection3d(poly)
         _set_equal_3d(ax, verts)
         mappable = plt.cm.ScalarMappable(cmap="hsv", norm=colors.Normalize(-np.pi, np.pi))
@@ -318,7 +365,7 @@ def write_figures(result: dict, out_dir, level: float = DEFAULT_LEVEL) -> list[P
     out = Path(out_dir)
     summary = result["summary"]
     meta = {"label": summary.get("label"), "hopf_charge": summary.get("hopf_charge"),
-            "energy": summary.get("energy")}
+            "energy": summary.get("energy"), "model": summary.get("model")}
     field, grid = result["field"], result["grid"]
     return [
         plot_slices(field, grid, result["energy_density"], out / "slices.png", meta),
