@@ -226,10 +226,18 @@ def plot_isosurface(field, grid: Grid, path, meta: dict | None = None,
 
 
 def plot_curves(field, grid: Grid, path, meta: dict | None = None, direction=PROJECTION) -> Path:
-    """Position curves (preimage of -e3) in 3D and their projection with crossings."""
+    """The position curve (preimage of a value next to -e3) and the preimage of a second
+    value (n3 = -0.27; the values of solitons.knots), in 3D and projected; their Gauss
+    linking number is the Hopf charge
+    (docs/references.md [R7]), given in the title with the crossings of the position
+    curves' projection (the input of the knot type)."""
+    from solitons.curves import linking_number
+    from solitons.knots import POSITION_VALUE, SHARE_VALUE
+
     meta = meta or {}
-    chains = preimage_chains(field, grid)
-    fig = plt.figure(figsize=(13, 6), dpi=DPI)
+    chains = preimage_chains(field, grid, POSITION_VALUE)
+    others = preimage_chains(field, grid, SHARE_VALUE)
+    fig = plt.figure(figsize=(13, 6.8), dpi=DPI, constrained_layout=True)
     ax3 = fig.add_subplot(1, 2, 1, projection="3d")
     ax2 = fig.add_subplot(1, 2, 2)
     palette = plt.get_cmap("tab10")
@@ -240,12 +248,21 @@ def plot_curves(field, grid: Grid, path, meta: dict | None = None, direction=PRO
         colour = palette(index % 10)
         ax3.add_collection3d(Line3DCollection([loop], colors=[colour], linewidths=2.5))
         ax2.plot(loop @ u, loop @ v, color=colour, lw=2,
-                 label=f"curve {index + 1}{'' if closed else ' (open: cut by the box)'}")
+                 label=f"position curve {index + 1}{'' if closed else ' (open: cut by the box)'}")
+        all_points.append(points)
+    for index, (points, closed) in enumerate(others):
+        loop = np.vstack([points, points[:1]]) if closed else points
+        ax3.add_collection3d(Line3DCollection([loop], colors=["0.45"], linewidths=1.2, linestyles="--"))
+        ax2.plot(loop @ u, loop @ v, color="0.45", lw=1.0, ls="--",
+                 label=f"second preimage ($n_3 = {SHARE_VALUE[2]:.2f}$)" if index == 0 else None)
         all_points.append(points)
     closed_curves = [p for p, c in chains if c]
+    closed_others = [p for p, c in others if c]
     crossings = projection_crossings(closed_curves, direction)
     for point, over, under in crossings:
         ax2.plot(*point, "o", ms=9, mfc="white", mec="k", zorder=5)
+    # oriented along B the Gauss linking number is -Q in this package's sign convention (knots.py)
+    link = -sum(linking_number(p, q) for p in closed_curves for q in closed_others)
     if all_points:
         _set_equal_3d(ax3, np.vstack(all_points))
         ax2.legend(loc="upper right", fontsize=8)
@@ -254,12 +271,12 @@ def plot_curves(field, grid: Grid, path, meta: dict | None = None, direction=PRO
     ax3.set_xlabel("x")
     ax3.set_ylabel("y")
     ax3.set_zlabel("z")
-    ax3.set_title("position curves ($n = -e_3$)")
+    ax3.set_title(f"position curve $n \\approx -e_3$ (solid),\nsecond preimage (dashed): linking number {link:.3f}")
     ax2.set_aspect("equal")
     ax2.set_xlabel("u")
     ax2.set_ylabel("v")
-    ax2.set_title(f"projection along {tuple(round(c, 2) for c in direction)}: "
-                  f"{len(crossings)} crossings (circles)")
+    ax2.set_title(f"projection along {tuple(round(c, 2) for c in direction)}\ncircles: the "
+                  f"{len(crossings)} crossings of the position curves")
     fig.suptitle(_title_text(meta))
     return save_figure(fig, path)
 

@@ -16,7 +16,7 @@ from solitons.initial import axial_map
 from solitons.io import read_result
 from solitons.plots import euler_characteristic, isosurface_mesh, write_figures
 
-SIZES = {"slices.png": (880, 1430), "isosurface.png": (825, 880), "curves.png": (660, 1430),
+SIZES = {"slices.png": (880, 1430), "isosurface.png": (825, 880), "curves.png": (748, 1430),
          "history.png": (880, 1320)}  # (height, width) = figsize * 110 dpi
 
 
