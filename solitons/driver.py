@@ -24,7 +24,7 @@ from solitons.energy import Model, kernel_couplings
 from solitons.grid import Grid
 from solitons.initial import add_noise, initial_field, interpolate_field
 from solitons.io import (
-    OutputError,
+    check_output_dir,
     prepare_output_dir,
     read_checkpoint,
     stale_temporaries,
@@ -415,8 +415,7 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     model = make_model(spec, grid)
     checkpoint_path = out / CHECKPOINT
     history, start_step, saved_state, segments = None, 0, None, []
-    if out.exists() and not out.is_dir():
-        raise OutputError(f"{out}: exists and is not a directory; name a directory for the output")
+    check_output_dir(out)
     if resume:
         if not checkpoint_path.exists():
             raise RunError(f"{checkpoint_path}: no checkpoint to resume from")

@@ -1,5 +1,7 @@
 """The Python API (solitons.relax, solitons.load, Result): the README's example runs as
-written, and its numbers agree with the command's files and with the jax reference."""
+written, and its numbers agree with the command's files and with the jax reference
+(an independent evaluation route); the exported density carries the normalisation of
+docs/references.md [R1].  Mechanics otherwise (common practice)."""
 
 import re
 from pathlib import Path
