@@ -323,23 +323,24 @@ def describe_model(model) -> str:
 _WARM: set = set()
 
 
-def warm_up(model, field, stream) -> None:
-    """One evaluation before the relaxation, announced: the first one in a process loads
-    the route's compiled numba code from its disk cache, or compiles it (a minute or two
-    after an install or an upgrade) - without a word that pause looks like a hang."""
+def warm_up(model, field, stream) -> tuple[float, np.ndarray]:
+    """The first evaluation of a run, returned (energy, gradient) for the finite-start
+    check.  The first one in a process, announced, loads the route's compiled numba code
+    from its disk cache or compiles it (a minute or two after an install or an upgrade) -
+    without a word that pause looks like a hang."""
     key = (type(model.route).__name__, np.asarray(field).dtype.str)
-    if key in _WARM:
-        return
-    if stream is not None:
+    announce = key not in _WARM and stream is not None
+    if announce:
         print(f"  evaluation route: {model.route.name}; loading or compiling its code ...", end="",
               file=stream, flush=True)
     begin = time.perf_counter()
-    model.evaluate(np.asarray(field))
+    evaluation = model.evaluate(np.asarray(field))
     seconds = time.perf_counter() - begin
     _WARM.add(key)
-    if stream is not None:
+    if announce:
         note = " (compiled; cached on disk for the next runs)" if seconds > 5.0 else ""
         print(f" {seconds:.1f} s{note}", file=stream, flush=True)
+    return evaluation
 
 
 def _utc_now() -> str:
@@ -367,8 +368,8 @@ def first_non_finite(model: Model, field) -> str:
     return "every term's density is finite, but the total or its gradient is not (an overflow in the sum)"
 
 
-def _check_finite_start(model: Model, field) -> None:
-    energy, gradient = model.evaluate(np.asarray(field))
+def _check_finite_start(model: Model, field, evaluation) -> None:
+    energy, gradient = evaluation
     if math.isfinite(energy) and np.all(np.isfinite(gradient)):
         return
     raise RunError(f"the energy of the initial data is already non-finite (E = {energy}): "
@@ -479,8 +480,7 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
               f"{spec.grid.scheme}-order scheme, method {relax_spec.method}",
               file=stream, flush=True)
         print(f"  model: {describe_model(model)}", file=stream, flush=True)
-    warm_up(model, field0, stream)
-    _check_finite_start(model, field0)
+    _check_finite_start(model, field0, warm_up(model, field0, stream))
     segment_clock[0] = time.perf_counter()
     coarse = None
     with interrupts.deferred(), _naming_checkpoint(checkpoint_path):
