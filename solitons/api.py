@@ -1,9 +1,16 @@
-"""The Python entry points, for notebooks and scripts: `relax`, `load` and `Result`.
+"""The Python entry points, for notebooks and scripts: `relax`, `load`, `Result`, `scan`,
+`survey` and `gallery`.
 
     import solitons
     result = solitons.relax(grid={"points": 41, "spacing": 0.25})   # Q = 1, plain model
     result.energy, result.charge, result.virial, result.verdict
     figures = result.figures()                                       # matplotlib figures
+    result.to_html("view.html")                                      # interactive 3D page
+    table = solitons.scan("scan.toml")                               # a pandas DataFrame
+
+`scan` and `survey` return pandas DataFrames, one row per point or run, with the columns
+of the command's scan.csv / survey.csv: notebooks filter, sort and plot them directly, and
+``table.to_dict("records")`` gives plain records.  (pandas comes with xarray anyway.)
 
 `relax` takes the configuration as a path, TOML text, a dict (the TOML tables) or
 nothing (the defaults), and overrides as keyword arguments, one per table
@@ -89,6 +96,16 @@ class Result:
             "curves": plots.plot_curves(self.field, self.grid, None, meta),
             "history": plots.plot_history(self.history, None, meta),
         }
+
+    def to_html(self, path: str | Path | None = None, level: float | None = None) -> str | Path:
+        """The interactive 3D page of `solitons show --html` (self-contained, offline):
+        written to ``path`` and the path returned, or the HTML text when ``path`` is None."""
+        from solitons import html_view, plots
+
+        level = plots.DEFAULT_LEVEL if level is None else level
+        if path is None:
+            return html_view.view_html(self.field, self.grid, self.summary, level)
+        return html_view.write_view({"field": self.field, "grid": self.grid, "summary": self.summary}, path, level)
 
     def to_xarray(self):
         """The field and the energy density as an xarray Dataset on the site coordinates
@@ -182,3 +199,97 @@ def relax(config: str | Path | dict | None = None, out: str | Path | None = None
         result = load(scratch)
     return Result(result.summary, result.field, result.grid, result.energy_density, result.history, result.config,
                   None)
+
+
+def _campaign_file(config, scratch: Path, name: str) -> Path:
+    """A campaign configuration as a file: a path is used as it is; TOML text or a dict is
+    written to ``scratch/name.toml`` with relative user-term file paths made absolute
+    from the working directory (where they would be looked up for text)."""
+    import tomllib
+
+    import tomli_w
+
+    from solitons.config import ConfigError
+
+    if isinstance(config, Path) or (isinstance(config, str) and "\n" not in config and "=" not in config):
+        return Path(config)
+    if isinstance(config, dict):
+        tables = config
+    else:
+        try:
+            tables = tomllib.loads(str(config))
+        except tomllib.TOMLDecodeError as error:
+            raise ConfigError("TOML text", "(syntax)", str(error), "is not valid TOML") from None
+    tables = {k: (dict(v) if isinstance(v, dict) else v) for k, v in tables.items()}
+    for term in (tables.get("terms") or {}).values():
+        if isinstance(term, dict) and isinstance(term.get("file"), str) and not Path(term["file"]).is_absolute():
+            term["file"] = str(Path.cwd() / term["file"])
+    scratch.mkdir(parents=True, exist_ok=True)
+    path = scratch / f"{name}.toml"
+    path.write_text(tomli_w.dumps(tables), encoding="utf-8")
+    return path
+
+
+def _campaign(kind: str, config, out, scheduler, workers, progress, figures, tables):
+    import pandas as pd
+
+    from solitons.io import check_output_dir
+
+    stream = sys.stderr if progress else None
+    overrides = _overrides(tables)
+    with tempfile.TemporaryDirectory(prefix=f"solitons-{kind}-") as scratch:
+        path = _campaign_file(config, Path(scratch), kind)
+        target = check_output_dir(out) if out is not None else Path(scratch) / "out"
+        if kind == "scan":
+            from solitons.campaigns import run_scan
+
+            rows = run_scan(path, target, overrides, stream=stream, figures=figures and out is not None,
+                            scheduler=scheduler, workers=workers)
+        else:
+            from solitons.survey import run_survey
+
+            rows = run_survey(path, target, overrides, scheduler=scheduler, workers=workers, stream=stream,
+                              figure=figures and out is not None)
+        table = pd.DataFrame.from_records(rows)
+    if out is None and "path" in table:
+        table = table.drop(columns="path")  # the run directories went with the scratch folder
+    return table
+
+
+def scan(config, out: str | Path | None = None, *, scheduler: str | None = "inline", workers: int | None = None,
+         progress: bool = False, figures: bool = True, **tables):
+    """Relax every point of a coupling scan ([scan] table) and return the table as a
+    pandas DataFrame: one row per point with the scanned value(s), E and each term's
+    energy (E[name]), hopf_charge, virial, size, core_thickness, boundary_fraction,
+    verdict, label, converged, iterations, skipped (finished earlier: same run hash).
+
+    config: a path, TOML text or a dict with a [scan] table.  out: a directory for the
+    runs, scan.csv and the figures (rerunning skips finished points); when None the runs
+    go to a temporary folder and only the table is kept.  scheduler: "inline" (default
+    here: this process, one point after another), None for a local dask cluster of
+    ``workers`` processes, or the address of a running scheduler.  Keyword arguments
+    override tables as in `relax`."""
+    return _campaign("scan", config, out, scheduler, workers, progress, figures, tables)
+
+
+def survey(config, out: str | Path | None = None, *, scheduler: str | None = "inline", workers: int | None = None,
+           progress: bool = False, figures: bool = True, **tables):
+    """Relax every family and seed of a survey ([survey] table) and return the table as a
+    pandas DataFrame: one row per run with Q, family, seed, label, energy,
+    energy_per_q34, measured_Q, verdict, converged, lowest (the lowest energy of its
+    charge), status.  Arguments as for `scan`."""
+    return _campaign("survey", config, out, scheduler, workers, progress, figures, tables)
+
+
+def gallery(results, level: float | None = None, columns: int = 4):
+    """One matplotlib figure with the isosurface of every result (Result objects or
+    paths), a shared phase colour bar, each panel zoomed to its soliton."""
+    from solitons import plots
+
+    entries = []
+    for item in results:
+        result = item if isinstance(item, Result) else load(item)
+        entries.append({"field": result.field, "grid": result.grid, "label": result.summary.get("label"),
+                        "hopf_charge": result.charge, "energy": result.energy,
+                        "model": result.summary.get("model")})
+    return plots.plot_gallery(entries, None, columns=columns, level=plots.DEFAULT_LEVEL if level is None else level)

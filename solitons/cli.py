@@ -62,9 +62,13 @@ def _parser() -> argparse.ArgumentParser:
     continuum.add_argument("--out", help="output directory (default runs/<config name>)")
     continuum.add_argument("overrides", nargs="*", metavar="dotted.key=value")
     continuum.add_argument("--quiet", action="store_true", help="no progress lines on stderr")
-    show = sub.add_parser("show", allow_abbrev=False, help="write PNG figures of a result file")
-    show.add_argument("result", help="a result.h5 written by relax")
+    show = sub.add_parser("show", allow_abbrev=False, help="write PNG figures of a result file, or with --html "
+                          "one interactive 3D page")
+    show.add_argument("result", help="a result.h5 written by relax (or the run directory holding it)")
     show.add_argument("--out", help="directory for the figures (default: next to the result)")
+    show.add_argument("--html", action="store_true",
+                      help="write only view.html: a self-contained interactive page (rotatable isosurface "
+                           "coloured by the phase, position curves, the run's numbers); works offline")
     show.add_argument("--level", type=float, default=None,
                       help="isosurface level of n3 (default -0.8, a tube around n = -e3)")
     gallery = sub.add_parser("gallery", allow_abbrev=False, help="one figure with the isosurface of every result")
@@ -158,9 +162,18 @@ def _command(args) -> int:
             from solitons.io import read_result
             from solitons.plots import DEFAULT_LEVEL, write_figures
 
-            result = read_result(args.result)
-            out = Path(args.out) if args.out else Path(args.result).parent
-            paths = write_figures(result, out, DEFAULT_LEVEL if args.level is None else args.level)
+            source = Path(args.result)
+            if source.is_dir():
+                source = source / "result.h5"
+            result = read_result(source)
+            out = check_output_dir(Path(args.out) if args.out else source.parent)
+            level = DEFAULT_LEVEL if args.level is None else args.level
+            if args.html:
+                from solitons.html_view import write_view
+
+                print(write_view(result, out / "view.html", level))
+                return EXIT_OK
+            paths = write_figures(result, out, level)
             print("\n".join(str(p) for p in paths))
             return EXIT_OK
         if args.command == "gallery":
@@ -174,7 +187,7 @@ def _command(args) -> int:
                 entries.append({"field": result["field"], "grid": result["grid"],
                                 "label": summary.get("label") or Path(path).parent.name,
                                 "hopf_charge": summary.get("hopf_charge"),
-                                "energy": summary.get("energy")})
+                                "energy": summary.get("energy"), "model": summary.get("model")})
             print(plot_gallery(entries, args.out, level=DEFAULT_LEVEL if args.level is None else args.level))
             return EXIT_OK
         if args.command == "scan":

@@ -121,7 +121,7 @@ def atomic_write_text(path: str | Path, text: str) -> None:
     path = Path(path)
     tmp = _atomic_target(path)
     try:
-        tmp.write_text(text)
+        tmp.write_text(text, encoding="utf-8")
         os.replace(tmp, path)
     finally:
         tmp.unlink(missing_ok=True)
@@ -195,7 +195,7 @@ def read_result(path) -> dict:
 
 def _read_result(path) -> dict:
     with h5py.File(path, "r") as h5:
-        return {
+        data = {
             "field": h5["field"][...],
             "grid": _grid_from(h5["field"]),
             "energy_density": h5["energy_density"][...],
@@ -205,6 +205,31 @@ def _read_result(path) -> dict:
             "version": str(h5.attrs["version"]),
             "summary": json.loads(h5.attrs["summary"]),
         }
+    if not data["summary"].get("model"):  # results written before the summary named the model
+        data["summary"]["model"] = model_from_config(data["config"])
+    return data
+
+
+def model_from_config(text: str) -> str | None:
+    """The terms and couplings of a merged configuration, e.g. "1 dirichlet + 1
+    skyrme_faddeev + 0.2 log_quartic(c1=0.1)" (the constants given in the file)."""
+    import tomllib
+
+    try:
+        terms = tomllib.loads(text).get("terms") or {}
+    except tomllib.TOMLDecodeError:
+        return None
+    parts = []
+    for name, entries in terms.items():
+        if not isinstance(entries, dict):
+            return None
+        kind = entries.get("kind", name)
+        label = name if kind == name else f"{name} [{kind}]"
+        constants = {k: v for k, v in entries.items() if k not in ("kind", "coupling", "file", "function",
+                                                                  "derivatives", "laplacian")}
+        inside = ", ".join(f"{k}={v:g}" if isinstance(v, (int, float)) else f"{k}={v}" for k, v in constants.items())
+        parts.append(f"{entries.get('coupling', 1.0):g} {label}" + (f"({inside})" if inside else ""))
+    return " + ".join(parts) or None
 
 
 def write_checkpoint(path, field, grid: Grid, step: int, history_arrays: dict, config_text: str,
@@ -297,7 +322,7 @@ def write_xdmf(path, h5_path, grid: Grid) -> None:
     path = Path(path)
     tmp = _atomic_target(path)
     try:
-        tmp.write_text(text)
+        tmp.write_text(text, encoding="utf-8")
         os.replace(tmp, path)
     finally:
         tmp.unlink(missing_ok=True)

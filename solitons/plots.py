@@ -7,6 +7,7 @@ these functions at the edge.
 from __future__ import annotations
 
 import sys
+import textwrap
 from pathlib import Path
 
 import matplotlib
@@ -317,24 +318,48 @@ def plot_history(history: dict, path, meta: dict | None = None) -> Path:
 
 
 def plot_gallery(entries: list[dict], path, columns: int = 4, level: float = DEFAULT_LEVEL) -> Path:
-    """One panel per solution: isosurface, with Q, label and E.  ``entries`` hold
-    ``field``, ``grid`` and the keys used in titles (label, hopf_charge, energy)."""
+    """One panel per solution: its isosurface, zoomed to fill the panel, with label, Q, E
+    and the surface's largest extent (panels differ in scale); one shared phase colour bar.
+    ``entries`` hold ``field``, ``grid`` and the keys used in titles (label, hopf_charge,
+    energy, model).  With ``path`` None the figure is returned."""
+    columns = max(1, min(columns, len(entries)))
     rows = max(1, -(-len(entries) // columns))
-    fig = plt.figure(figsize=(4 * columns, 4 * rows), dpi=DPI)
+    panel = 3.6  # inches per panel
+    bar_width = 0.9
+    header = 0.55  # inches for the figure title
+    fig = plt.figure(figsize=(panel * columns + bar_width, panel * rows + header), dpi=DPI)
+    width_fraction = panel * columns / (panel * columns + bar_width)
+    top = 1.0 - header / (panel * rows + header)
     for k, entry in enumerate(entries):
-        ax = fig.add_subplot(rows, columns, k + 1, projection="3d")
-        verts, faces, phase = isosurface_mesh(entry["field"], entry["grid"], level)
+        row, col = divmod(k, columns)
+        box = (col * width_fraction / columns, top * (1.0 - (row + 1) / rows),
+               width_fraction / columns, top / rows)
+        ax = fig.add_axes(box, projection="3d")
+        verts, faces, phase = isosurface_mesh(entry["field"], entry["grid"], level, refine=2)
+        extent = ""
         if len(faces):
             face_phase = np.angle(np.exp(1j * phase[faces]).mean(axis=1))
-            ax.add_collection3d(Poly3DCollection(verts[faces], facecolors=_shade(verts, faces, face_phase),
-                                                 edgecolor="none"))
+            shade = _shade(verts, faces, face_phase)
+            ax.add_collection3d(Poly3DCollection(verts[faces], facecolors=shade, edgecolors=shade,
+                                                 linewidths=0.2))
             _set_equal_3d(ax, verts)
+            ax.set_box_aspect((1, 1, 1), zoom=1.3)
+            extent = f"   extent {float(np.max(np.ptp(verts, axis=0))):.2f}"
+        else:
+            ax.text2D(0.5, 0.5, f"no surface n3 = {level}", transform=ax.transAxes, ha="center")
+        ax.view_init(elev=35, azim=-60)
         ax.set_axis_off()
         numbers = _title_text({"hopf_charge": entry.get("hopf_charge"), "energy": entry.get("energy")})
-        ax.set_title(f"{entry.get('label') or ''}\n{numbers}", fontsize=9)
-    fig.suptitle(f"isosurfaces $n_3 = {level}$, coloured by the phase of $n_1 + i n_2$")
-    fig.subplots_adjust(left=0.01, right=0.99, bottom=0.02, top=0.80 if rows == 1 else 0.92,
-                        wspace=0.05, hspace=0.15)
+        model = ("\n" + textwrap.fill(entry["model"], 60)) if entry.get("model") else ""
+        ax.text2D(0.5, 0.99, f"{entry.get('label') or ''}\n{numbers}{extent}{model}", transform=ax.transAxes,
+                  ha="center", va="top", fontsize=9 if not model else 8)
+    bar_ax = fig.add_axes((width_fraction + 0.15 * bar_width / fig.get_figwidth(), 0.15,
+                           0.22 * bar_width / fig.get_figwidth(), 0.65))
+    bar = fig.colorbar(plt.cm.ScalarMappable(cmap="hsv", norm=colors.Normalize(-np.pi, np.pi)), cax=bar_ax)
+    bar.set_label("phase of $n_1 + i n_2$ (rad)")
+    bar.set_ticks([-np.pi, 0, np.pi], labels=[r"$-\pi$", "0", r"$\pi$"])
+    fig.suptitle(f"isosurfaces $n_3 = {level}$ coloured by the phase of $n_1 + i n_2$\neach panel zoomed to "
+                 "its surface (extent in model length units)", fontsize=10, y=0.995, va="top")
     return save_figure(fig, path)
 
 

@@ -68,3 +68,50 @@ def test_xarray_export_carries_coordinates_units_and_the_energy(tmp_path):
     np.testing.assert_allclose(ds.x.values, np.linspace(-3.0, 3.0, 21), atol=1e-12)
     assert float(ds["energy_density"].sum()) * 0.3**3 == pytest.approx(result.energy, rel=1e-12)
     assert ds.attrs["verdict"] == result.verdict and "[grid]" in ds.attrs["config"]
+
+
+SCAN_TABLES = {
+    "grid": {"points": 25, "spacing": 0.32},
+    "terms": {"dirichlet": {}, "skyrme_faddeev": {}, "mass": {"kind": "user", "file": "mass.py", "coupling": 0.0}},
+    "relax": {"max_steps": 8, "checkpoint_every": 0, "saddle_check": False},
+    "scan": {"parameter": "terms.mass.coupling", "values": [0.25, 0.5]},
+}
+
+
+def test_scan_returns_the_commands_table(tmp_path, monkeypatch):
+    """`solitons.scan` gives the rows of scan.csv as a DataFrame; a dict with a relative
+    user-term file finds it from the working directory, and the user copy of the
+    potential gives the built-in potential's energies to 1e-8 (an independent route for
+    the term: jax autodiff against the numba kernel; their rounding differs, and eight
+    L-BFGS steps carry it to 8.7e-10 relative, measured)."""
+    import csv
+
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "mass.py").write_text("def density(n, d, lap=None):\n    return 1.0 - n[..., 2]\n")
+    table = solitons.scan(SCAN_TABLES, out=tmp_path / "out", figures=False)
+    assert list(table["terms.mass.coupling"]) == [0.25, 0.5]
+    with open(tmp_path / "out" / "scan.csv") as handle:
+        written = list(csv.DictReader(handle))
+    assert [float(r["energy"]) for r in written] == list(table["energy"])
+    assert {"energy", "E[mass]", "hopf_charge", "virial", "verdict", "skipped"} <= set(table.columns)
+    builtin = {**SCAN_TABLES, "terms": {**SCAN_TABLES["terms"], "mass": {"kind": "potential", "coupling": 0.0}}}
+    reference = solitons.scan(builtin)  # no out: nothing written, the table kept
+    assert "path" not in reference.columns and sorted(p.name for p in tmp_path.iterdir()) == ["mass.py", "out"]
+    np.testing.assert_allclose(table["energy"], reference["energy"], rtol=1e-8)
+    again = solitons.scan(SCAN_TABLES, out=tmp_path / "out", figures=False)
+    assert again["skipped"].all() and list(again["energy"]) == list(table["energy"])
+
+
+def test_survey_returns_a_table_and_the_gallery_and_page_take_results(tmp_path):
+    text = ("[grid]\npoints = 25\nspacing = 0.32\n[relax]\nmax_steps = 5\ncheckpoint_every = 0\n"
+            "saddle_check = false\n[survey]\ncharges = [1]\n")
+    table = solitons.survey(text, out=tmp_path / "s", figures=False)
+    assert list(table["Q"]) == [1] and table["status"].tolist() == ["finished"]
+    assert table["energy_per_q34"].iloc[0] == pytest.approx(table["energy"].iloc[0])  # Q^(3/4) = 1
+    result = solitons.load(tmp_path / "s" / table["task"].iloc[0])
+    assert result.energy == table["energy"].iloc[0]
+    figure = solitons.gallery([result, tmp_path / "s" / table["task"].iloc[0]])
+    assert len([ax for ax in figure.axes if ax.name == "3d"]) == 2
+    page = result.to_html()
+    assert "Plotly.newPlot" in page and f"{result.energy:.6f}" in page
+    assert result.to_html(tmp_path / "v.html") == tmp_path / "v.html" and (tmp_path / "v.html").stat().st_size > 1e6

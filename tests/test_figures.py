@@ -84,7 +84,12 @@ def test_relax_writes_figures_and_show_command(relaxed, tmp_path):
                            str(out / "result.h5"), "--out", str(tmp_path / "g.png")],
                           capture_output=True, text=True, cwd=tmp_path)
     assert proc.returncode == 0, proc.stderr
-    assert matplotlib.image.imread(tmp_path / "g.png")[..., :3].std() > 0.01
+    gallery = matplotlib.image.imread(tmp_path / "g.png")[..., :3]
+    # both panels drawn and the frame filled: phase colours (saturated) in each half of the
+    # panel area (left of the colour bar); two results once used only the left 40 %
+    spread = gallery.max(axis=-1) - gallery.min(axis=-1)
+    coloured_columns = np.flatnonzero((spread > 0.5).any(axis=0)) / gallery.shape[1]
+    assert coloured_columns.min() < 0.3 and ((coloured_columns > 0.55) & (coloured_columns < 0.85)).any()
     missing = subprocess.run([sys.executable, "-m", "solitons.cli", "show", str(tmp_path / "nope.h5")],
                              capture_output=True, text=True, cwd=tmp_path)
     assert missing.returncode == 2 and "nope.h5" in missing.stderr
@@ -105,3 +110,24 @@ def test_xdmf_sidecar_names_existing_datasets(relaxed):
             assert h5[dataset].shape == shape
             assert h5[dataset].dtype == np.float64 and item.get("Precision") == "8"
         np.testing.assert_allclose(h5["coordinates"][1, 2, 3], [-3.8, -3.6, -3.4])
+
+
+def test_results_without_a_model_entry_get_it_from_their_config(relaxed, tmp_path):
+    """Results written before the summary named the model: the figures' titles read it
+    from the stored configuration, in the driver's wording (solitons.driver.describe_model)."""
+    import json
+    import shutil
+
+    from solitons.driver import describe_model, make_model
+    from solitons.io import model_from_config
+
+    result = read_result(relaxed / "result.h5")
+    spec = load(None, [], text=result["config"])
+    assert model_from_config(result["config"]) == describe_model(make_model(spec, result["grid"]))
+    old = tmp_path / "old.h5"
+    shutil.copy(relaxed / "result.h5", old)
+    with h5py.File(old, "r+") as h5:
+        summary = json.loads(h5.attrs["summary"])
+        del summary["model"]
+        h5.attrs["summary"] = json.dumps(summary)
+    assert read_result(old)["summary"]["model"] == result["summary"]["model"]

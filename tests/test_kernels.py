@@ -47,6 +47,7 @@ def test_kernel_matches_jax_autodiff(boundary, scheme):
     assert np.allclose(v_jax["per_axis"], v_kernel["per_axis"], atol=1e-12, rtol=0)
 
 
+@pytest.mark.slow  # 122 s in CI, nearly all of it compiling the float32 kernels
 def test_kernel_float32_agrees_with_float64():
     grid = Grid.centred(24, 0.3, "fixed")
     _, kernel_model = model_pair(grid, "second")
