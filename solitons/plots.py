@@ -214,7 +214,7 @@ def plot_isosurface(field, grid: Grid, path, meta: dict | None = None,
         _set_equal_3d(ax, verts)
         mappable = plt.cm.ScalarMappable(cmap="hsv", norm=colors.Normalize(-np.pi, np.pi))
         bar = fig.colorbar(mappable, ax=ax, shrink=0.6, pad=0.08)
-        bar.set_label("phase of $n_1 + i n_2$")
+        bar.set_label("phase of $n_1 + i n_2$ (rad)")
         bar.set_ticks([-np.pi, 0, np.pi], labels=[r"$-\pi$", "0", r"$\pi$"])
     else:
         ax.text2D(0.5, 0.5, f"no isosurface n3 = {level}", transform=ax.transAxes, ha="center")
