@@ -246,7 +246,7 @@ def _campaign(kind: str, config, out, scheduler, workers, progress, figures, tab
             rows = run_scan(path, target, overrides, stream=stream, figures=figures and out is not None,
                             scheduler=scheduler, workers=workers)
         else:
-            from solitons.survey import run_survey
+            from solitons.charge_survey import run_survey
 
             rows = run_survey(path, target, overrides, scheduler=scheduler, workers=workers, stream=stream,
                               figure=figures and out is not None)

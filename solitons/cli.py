@@ -201,7 +201,7 @@ def _command(args) -> int:
             print(f"files         {out / 'scan.csv'}" + (f"  {out / 'scan.png'}" if args.figures else ""))
             return EXIT_OK
         if args.command == "survey":
-            from solitons.survey import run_survey, summary_lines
+            from solitons.charge_survey import run_survey, summary_lines
 
             out = check_output_dir(Path(args.out) if args.out else Path("runs") / Path(args.config).stem)
             rows = run_survey(args.config, out, args.overrides, scheduler=args.scheduler, workers=args.workers,

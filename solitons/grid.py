@@ -324,7 +324,10 @@ def grid_laplacian(padded, width, grid: Grid, spacing, stencil: Stencil):
             xi = grid.xi_axes()[axis]
             jacobian = grid.jacobian(xi, axis)
             first = central(stencil.central, axis) / spacing[axis]
-            slope = jnp.asarray(_axis_view(grid.jacobian_slope(xi, axis) / jacobian, axis, shape), dtype=dtype)
+            # x''/x' is an inverse length: it scales with 1/h when every length does (the
+            # virial's scaling, with x'(xi) and the site weights fixed)
+            slope = jnp.asarray(_axis_view(grid.jacobian_slope(xi, axis) / jacobian * grid.spacing[axis], axis,
+                                           shape), dtype=dtype) / spacing[axis]
             second = (second - first * slope) * jnp.asarray(_axis_view(1.0 / jacobian**2, axis, shape), dtype=dtype)
         total = total + second
     return total

@@ -206,7 +206,9 @@ def _read_result(path) -> dict:
             "summary": json.loads(h5.attrs["summary"]),
         }
     if not data["summary"].get("model"):  # results written before the summary named the model
-        data["summary"]["model"] = model_from_config(data["config"])
+        model = model_from_config(data["config"])
+        if model:
+            data["summary"]["model"] = model
     return data
 
 

@@ -433,7 +433,10 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory, resume=None, precond
     weights3 = np.zeros(0)
     operator = None
     if preconditioner == "laplacian":
-        operator = LaplacianPreconditioner(model.grid, SHIFT if preconditioner_shift is None else preconditioner_shift)
+        shift = SHIFT if preconditioner_shift is None else preconditioner_shift
+        # a model may bring its own (the axial half plane: solitons.axial.AxialPreconditioner)
+        make = getattr(model, "preconditioner", None)
+        operator = make(shift) if make is not None else LaplacianPreconditioner(model.grid, shift)
         w_gradient = np.empty((sites, 3))  # W g of the current point
         # the newest accepted y and a scratch pair buffer (y_hist holds W y)
         y_buffers = [np.empty((sites, 3), dtype=HISTORY_DTYPE), np.empty((sites, 3), dtype=HISTORY_DTYPE)]

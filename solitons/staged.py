@@ -797,7 +797,8 @@ def _stage_all(buf, r, taps, fx, bx, fy, by, fz, bz, lap, lap_x, lap_y, lap_z, r
 
 def laplacian_coefficients(shape, spacing, stencil, stretch_terms=None, dtype=np.float64):
     """Per axis: the staging coefficients (n_a, 2, 7) (row 0 the Laplacian's, row 1 its
-    virial scaling 2 A l_o / h^2 + B c_o / h) and the gather coefficients (7, n_a) (site i
+    virial scaling, twice row 0: under a scaling of every length B / h scales as 1 / h^2
+    like A / h^2) and the gather coefficients (7, n_a) (site i
     collects the Laplacian rows of site i - o with the staging coefficient of that site).
     lap_a = A (sum_o l_o n(x + o e_a)) / h^2 + B (sum_o c_o n(x + o e_a)) / h, with A = 1 and
     B = 0 on a uniform axis, A = 1 / x'^2 and B = -x'' / x'^3 on a stretched one
@@ -809,7 +810,7 @@ def laplacian_coefficients(shape, spacing, stencil, stretch_terms=None, dtype=np
             else stretch_terms[axis]
         s = np.empty((n, 2, 7))
         s[:, 0, :] = a[:, None] * lap[None, :] / h**2 + b[:, None] * central[None, :] / h
-        s[:, 1, :] = 2.0 * a[:, None] * lap[None, :] / h**2 + b[:, None] * central[None, :] / h
+        s[:, 1, :] = 2.0 * s[:, 0, :]  # B = -x''/x'^3 is an inverse length: every part scales as 1/h^2
         g = np.empty((7, n))
         for o in range(-3, 4):
             g[o + 3] = s[(np.arange(n) - o) % n, 0, o + 3]

@@ -143,7 +143,7 @@ def test_continuum_with_continuation_is_refused(tmp_path):
 def test_survey_runs_carry_their_continuum_limits(tmp_path):
     """A survey with `continuum = [...]` runs every task as a continuum command: the table
     gains E_inf below every level's energy (the sixth-order scheme errs upwards, README)."""
-    from solitons.survey import run_survey
+    from solitons.charge_survey import run_survey
 
     config = tmp_path / "survey.toml"
     config.write_text("[grid]\npoints = 25\nspacing = 0.4\nstretch = 2.0\n"

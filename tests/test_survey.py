@@ -10,7 +10,7 @@ import pytest
 from solitons import catalogue
 from solitons.cli import main
 from solitons.config import ConfigError
-from solitons.survey import read_survey
+from solitons.charge_survey import read_survey
 
 SURVEY = """
 [grid]
