@@ -41,6 +41,7 @@ import math
 from dataclasses import dataclass
 from dataclasses import field as dc_field
 from functools import partial
+from pathlib import Path
 
 import jax
 import jax.numpy as jnp
@@ -486,24 +487,61 @@ def axial_initial(grid: AxialGrid, b: int = 1, size: float = 1.0, z_centre: floa
     return field * mask + np.asarray(VACUUM) * (1.0 - mask)
 
 
-def to_3d(m: np.ndarray, grid: AxialGrid, target: Grid) -> np.ndarray:
-    """The axial field on a 3D grid: n(x) = R(k phi) m(rho, z), m interpolated (cubic, in
-    the computational coordinates) at each site's (rho, z); the vacuum outside the half
-    plane's reach.  Renormalised; the target's held border at the vacuum."""
-    from scipy.ndimage import map_coordinates
-
+def _plane_coordinates(grid: AxialGrid, target: Grid):
+    """(fractional rho index, fractional z index, phi, outside) of every 3D site."""
     x, y, z = target.mesh()
     rho, phi = np.hypot(x, y), np.arctan2(y, x)
     xi_rho = np.arcsinh(rho / grid.stretch[0]) * grid.stretch[0] if grid.stretch[0] else rho
     xi_z = np.arcsinh(z / grid.stretch[1]) * grid.stretch[1] if grid.stretch[1] else z
     i = xi_rho / grid.spacing[0] - 0.5
     j = xi_z / grid.spacing[1] + 0.5 * (grid.shape[1] - 1)
+    outside = (i > grid.shape[0] - 1) | (j < 0) | (j > grid.shape[1] - 1)
+    return i, j, phi, outside
+
+
+def density_to_3d(density: np.ndarray, grid: AxialGrid, target: Grid) -> np.ndarray:
+    """An axial scalar (N_rho, N_z) at every 3D site (cubic interpolation, mirrored across
+    the axis; zero outside the half plane's reach)."""
+    from scipy.ndimage import map_coordinates
+
+    i, j, _, outside = _plane_coordinates(grid, target)
+    width = 3
+    extended = np.concatenate([np.asarray(density)[:width][::-1], np.asarray(density)], axis=0)
+    extended = np.pad(extended, ((0, width), (width, width)))
+    values = map_coordinates(extended, np.stack([i + width, j + width]), order=3, mode="nearest")
+    return np.where(outside, 0.0, values)
+
+
+def read_axial(path) -> dict | None:
+    """The half-plane field, density and grid of an axial result file, or None for a 3D
+    one."""
+    import h5py
+
+    path = Path(path)
+    if path.is_dir():
+        path = path / "result.h5"
+    with h5py.File(path, "r") as h5:
+        if "axial" not in h5:
+            return None
+        group = h5["axial"]
+        field = group["field"][...]
+        grid = AxialGrid(field.shape[:2], tuple(group.attrs["spacing"]), int(group.attrs["winding"]),
+                         tuple(group.attrs["stretch"]))
+        return {"field": field, "energy_density": group["energy_density"][...], "grid": grid}
+
+
+def to_3d(m: np.ndarray, grid: AxialGrid, target: Grid) -> np.ndarray:
+    """The axial field on a 3D grid: n(x) = R(k phi) m(rho, z), m interpolated (cubic, in
+    the computational coordinates) at each site's (rho, z); the vacuum outside the half
+    plane's reach.  Renormalised; the target's held border at the vacuum."""
+    from scipy.ndimage import map_coordinates
+
+    i, j, phi, outside = _plane_coordinates(grid, target)
     # extend across the axis with the mirror sites so that the spline is smooth there
     width = 3
     extended = np.asarray(pad_axial(jnp.asarray(m), grid.winding, width))
     coords = np.stack([i + width, j + width])
     values = np.stack([map_coordinates(extended[..., c], coords, order=3, mode="nearest") for c in range(3)], -1)
-    outside = (i > grid.shape[0] - 1) | (j < 0) | (j > grid.shape[1] - 1)
     values[outside] = VACUUM
     angle = grid.winding * phi
     c, s = np.cos(angle), np.sin(angle)

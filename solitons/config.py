@@ -26,11 +26,12 @@ DEFAULTS: dict[str, Any] = {
     # box of side 16 at h = 0.2: an empty configuration relaxes Q = 1 to E = 1.231867,
     # virial -0.0011, 0.038 % of the energy on the border, verdict stable, in 32 s on 2
     # cores (measured); 64 points at h = 0.125 (side 7.9) squeezed it to virial -0.096
-    "grid": {"points": 81, "spacing": 0.2, "boundary": "fixed", "scheme": "sixth", "stretch": 0.0},
+    "grid": {"points": 81, "spacing": 0.2, "boundary": "fixed", "scheme": "sixth", "stretch": 0.0,
+             "symmetry": "none"},
     "terms": {"dirichlet": {"coupling": 1.0}, "skyrme_faddeev": {"coupling": 1.0}},
     "initial": {"family": "axial", "a": 1, "b": 1, "alpha": 1, "beta": 1, "factors": [], "parts": [],
                 "size": 1.0, "centre": [0.0, 0.0, 0.0], "orientation": [0.0, 0.0, 0.0],
-                "noise": 0.0, "seed": 0},
+                "noise": 0.0, "seed": 0, "file": ""},
     "relax": {"method": "lbfgs", "max_steps": 4000, "force_tol": 1e-3, "energy_tol": 1e-10,
               "patience": 20, "time_step": 0.0, "checkpoint_every": 100,
               "progress_seconds": 5.0, "hessian_modes": 0, "backend": "auto",
@@ -66,6 +67,7 @@ class GridSpec:
     boundary: str
     scheme: str
     stretch: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    symmetry: str = "none"  # "axial": the half plane of solitons.axial, covering the same box
 
 
 @dataclass(frozen=True)
@@ -377,7 +379,7 @@ def _initial_part(c: _Checker, prefix: str, table: dict, top: bool = False) -> d
             if name not in _PART_KEYS:
                 fail(name, table[name], f"unknown key; expected one of {', '.join(_PART_KEYS)}")
     family = table.get("family", "axial")
-    allowed = FAMILIES if top else tuple(f for f in FAMILIES if f != "several")
+    allowed = FAMILIES if top else tuple(f for f in FAMILIES if f not in ("several", "result"))
     if family not in allowed:
         fail("family", family, f"must be one of {', '.join(allowed)}")
     defaults = DEFAULTS["initial"]
@@ -471,6 +473,50 @@ def _check_inside_box(c: _Checker, grid: GridSpec, part: dict, prefix: str) -> N
                    "take a smaller size or a larger box (grid.points, grid.spacing or grid.stretch)")
 
 
+SYMMETRIES = ("none", "axial")
+
+
+def _result_part(c: _Checker, file, base_dir: Path) -> dict:
+    """initial.family = "result": the file must be a result with a Hopf charge."""
+    import h5py
+
+    if not isinstance(file, str) or not file:
+        c.fail("initial.file", file, "the result family needs initial.file = the path of a result.h5 "
+               "(or of the run directory holding it)")
+    path = Path(file) if Path(file).is_absolute() else base_dir / file
+    if path.is_dir():
+        path = path / "result.h5"
+    try:
+        with h5py.File(path, "r") as h5:
+            charge = float(h5.attrs["hopf_charge"])
+    except (OSError, KeyError) as error:
+        c.fail("initial.file", file, f"is not a readable result file ({path}: {error})")
+    if not round(charge):
+        c.fail("initial.file", file, f"holds a field of Hopf charge {charge:.4f}: nothing to relax")
+    return {"family": "result", "file": str(path.resolve()), "charge": int(round(charge))}
+
+
+def _check_axial(c: _Checker, grid: GridSpec, initial: InitialSpec, relax: RelaxSpec) -> None:
+    """grid.symmetry = "axial": what the half plane can represent and run."""
+    if grid.boundary != "fixed":
+        c.fail("grid.boundary", grid.boundary, "the axial mode needs boundary = \"fixed\" (its far border "
+               "is held at the vacuum)")
+    part = initial.part
+    if part["family"] != "axial":
+        c.fail("initial.family", part["family"], "the axial mode starts from the axial maps W = Z1^a / Z0^b "
+               "(family = \"axial\"; a is the winding about the axis)")
+    if part["centre"][0] or part["centre"][1]:
+        c.fail("initial.centre", list(part["centre"]), "must lie on the symmetry axis (x = y = 0) in the axial mode")
+    if any(part["orientation"]):
+        c.fail("initial.orientation", list(part["orientation"]), "must be [0, 0, 0] in the axial mode "
+               "(the symmetry axis is z)")
+    if relax.hessian_modes:
+        c.fail("relax.hessian_modes", relax.hessian_modes, "the Hessian study is a 3D one: carry the axial "
+               "result into 3D (initial.family = \"result\") and run it there")
+    if relax.coarse_start:
+        c.fail("relax.coarse_start", True, "the axial mode has no coarse start (it needs none)")
+
+
 def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec:
     c = _Checker(merged, sources)
     grid = GridSpec(
@@ -479,6 +525,7 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
         boundary=c.choice("grid", "boundary", BOUNDARIES),
         scheme=c.choice("grid", "scheme", tuple(SCHEMES)),
         stretch=c.triple("grid", "stretch", "real", non_negative=True),
+        symmetry=c.choice("grid", "symmetry", SYMMETRIES),
     )
     if any(grid.stretch) and grid.boundary == "periodic":
         c.fail("grid.stretch", merged["grid"]["stretch"], "a stretched grid needs boundary = \"fixed\" "
@@ -495,13 +542,18 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
                "field, so there is nothing to relax (give at least one term a non-zero coupling)")
 
     family = c.choice("initial", "family", FAMILIES)
+    if family == "result":
+        part = _result_part(c, merged["initial"].get("file", ""), base_dir)
+    else:
+        part = _initial_part(c, "initial", merged["initial"], top=True)
     initial = InitialSpec(
         family=family,
-        part=_initial_part(c, "initial", merged["initial"], top=True),
+        part=part,
         noise=c.real("initial", "noise", non_negative=True),
         seed=c.integer("initial", "seed", minimum=0),
     )
-    _check_inside_box(c, grid, initial.part, "initial")
+    if family != "result":
+        _check_inside_box(c, grid, initial.part, "initial")
     relax = RelaxSpec(
         method=c.choice("relax", "method", METHODS),
         max_steps=c.integer("relax", "max_steps", minimum=1),
@@ -522,6 +574,8 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
     if grid.boundary == "periodic" and relax.preconditioner == "laplacian" and relax.preconditioner_shift == 0.0:
         c.fail("relax.preconditioner_shift", 0.0, "a periodic box needs a positive shift (the constant mode "
                "of the Laplacian is zero)")
+    if grid.symmetry == "axial":
+        _check_axial(c, grid, initial, relax)
     if any(grid.stretch) and relax.hessian_modes:
         c.fail("relax.hessian_modes", relax.hessian_modes, "the Hessian study needs a uniform grid "
                "(grid.stretch = 0); on a stretched grid its eigenproblem would need the site volumes as a metric")
@@ -543,7 +597,14 @@ def _toml_key(key: str) -> str:
 
 
 def dumps(merged: dict) -> str:
-    """The merged configuration as TOML text (readable back by `load`), written by tomli-w."""
-    ordered = {table: merged[table] for table in ("grid", "initial", "relax") if table in merged}
+    """The merged configuration as TOML text (readable back by `load`), written by tomli-w.
+    Keys added after results existed are left out while they hold their default
+    (grid.symmetry "none", initial.file ""), so the text, and the run hash from it, of a
+    configuration that does not use them is what it was."""
+    ordered = {table: dict(merged[table]) for table in ("grid", "initial", "relax") if table in merged}
+    if ordered.get("grid", {}).get("symmetry") == "none":
+        del ordered["grid"]["symmetry"]
+    if ordered.get("initial", {}).get("file") == "":
+        del ordered["initial"]["file"]
     ordered["terms"] = merged.get("terms", {})
     return tomli_w.dumps(ordered)

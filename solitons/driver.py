@@ -27,6 +27,7 @@ from solitons.io import (
     check_output_dir,
     prepare_output_dir,
     read_checkpoint,
+    read_result,
     stale_temporaries,
     write_checkpoint,
     write_json,
@@ -94,10 +95,30 @@ def make_model(spec: RunSpec, grid: Grid) -> Model:
 
 def make_initial_field(spec: RunSpec, grid: Grid) -> np.ndarray:
     init = spec.initial
-    field = initial_field(grid, init.part)
+    if init.family == "result":
+        field = field_from_result(init.part["file"], grid)
+    else:
+        field = initial_field(grid, init.part)
     if grid.boundary == "fixed":
         field = field * grid.free_mask() + np.array([0.0, 0.0, 1.0]) * (1.0 - grid.free_mask())
     return add_noise(field, grid, init.noise, init.seed)
+
+
+def field_from_result(path: str, grid: Grid) -> np.ndarray:
+    """The relaxed field of a result file on ``grid``: an axial result rotated out from its
+    half plane (solitons.axial.to_3d), a 3D one as it is when its grid is this one."""
+    from solitons.axial import read_axial
+
+    axial = read_axial(path)
+    if axial is not None:
+        from solitons.axial import to_3d
+
+        return to_3d(axial["field"], axial["grid"], grid)
+    data = read_result(path)
+    if data["grid"] != grid:
+        raise RunError(f"{path}: its grid {data['grid'].shape} (h = {data['grid'].spacing}) is not this run's "
+                       f"{grid.shape} (h = {grid.spacing}); a 3D result seeds a run on the same grid")
+    return data["field"]
 
 
 def coarse_stage(spec: RunSpec, grid: Grid, model: Model, rule: StoppingRule, stream):
@@ -410,6 +431,10 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     from it takes the same steps as a run never stopped.  The summary records every
     segment of a resumed run (``segments``); ``iterations``, ``evaluations`` and
     ``wall_seconds`` count all of them."""
+    if spec.grid.symmetry == "axial":
+        from solitons.axial_run import relax_axial
+
+        return relax_axial(spec, out_dir, resume=resume, overwrite=overwrite, stream=stream)
     out = Path(out_dir)
     grid = make_grid(spec)
     check_memory(grid)
@@ -637,7 +662,11 @@ def report(summary: dict, out_dir: str | Path, stream: TextIO | None = None) -> 
         f"{summary['iterations']} steps, {summary['evaluations']} evaluations, "
         f"max force {summary['max_force']:.2e}, {summary['wall_seconds']:.1f} s)",
         f"grid          {g['shape'][0]}x{g['shape'][1]}x{g['shape'][2]}, h = {g['spacing'][0]:g}, "
-        f"box side {g['box_side'][0]:g}, {g['boundary']}, {g['scheme']}-order",
+        f"box side {g['box_side'][0]:g}, {g['boundary']}, {g['scheme']}-order"
+        + (f"; AXIAL mode: half plane {summary['axial']['shape'][0]}x{summary['axial']['shape'][1]}, "
+           f"winding {summary['axial']['winding']}, virial rho {summary['axial']['virial_rho']:+.2e} "
+           f"z {summary['axial']['virial_z']:+.2e} (the 3D files hold the field rotated out)"
+           if summary.get("symmetry") == "axial" else ""),
         f"verdict       {summary['verdict']}",
     ]
     for warning in summary["warnings"]:

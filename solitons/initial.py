@@ -117,7 +117,9 @@ def rational_map(grid: Grid, alpha: int, beta: int, factors, size: float = 1.0,
     return field_from_fraction(numerator, denominator)
 
 
-FAMILIES = ("axial", "torus_knot", "rational", "several")
+FAMILIES = ("axial", "torus_knot", "rational", "several", "result")
+# "result": the relaxed field of a result file (an axial one rotated out onto the grid, see
+# solitons.axial.to_3d), read by the driver; ``charge`` is the file's rounded Hopf charge.
 
 
 def _factors(part: dict):
@@ -131,6 +133,8 @@ def expected_charge(part: dict) -> int:
     family = part["family"]
     if family == "axial":
         return part["a"] * part["b"]
+    if family == "result":
+        return part["charge"]
     if family == "several":
         return sum(expected_charge(p) for p in part["parts"])
     return sum(part["alpha"] * b + part["beta"] * a for a, b, _ in _factors(part))
@@ -141,6 +145,10 @@ def describe(part: dict) -> str:
     family = part["family"]
     if family == "axial":
         return f"axial({part['a']},{part['b']})"
+    if family == "result":
+        from pathlib import Path
+
+        return f"result({Path(part['file']).parent.name or part['file']})"
     if family == "several":
         return " + ".join(describe(p) for p in part["parts"])
     if family == "torus_knot":

@@ -147,8 +147,9 @@ def _write_history(h5, history_arrays: dict):
 
 
 def write_result(path, field, grid: Grid, energy_density, summary: dict, history_arrays: dict,
-                 config_text: str, version: str) -> None:
-    """Write ``result.h5`` atomically (layout in the module docstring)."""
+                 config_text: str, version: str, axial: dict | None = None) -> None:
+    """Write ``result.h5`` atomically (layout in the module docstring).  ``axial``: the
+    half-plane field and density of an axial run (group ``/axial``, solitons.axial_run)."""
     path = Path(path)
     tmp = _atomic_target(path)
     try:
@@ -172,6 +173,12 @@ def write_result(path, field, grid: Grid, energy_density, summary: dict, history
             h5.attrs["summary"] = json.dumps(finite_json(summary), allow_nan=False)
             if "provenance" in summary:
                 h5.attrs["provenance"] = json.dumps(summary["provenance"])
+            if axial is not None:
+                group = h5.create_group("axial")
+                group.create_dataset("field", data=np.asarray(axial["field"], dtype=np.float64))
+                group.create_dataset("energy_density", data=np.asarray(axial["energy_density"], dtype=np.float64))
+                for key in ("spacing", "stretch", "winding"):
+                    group.attrs[key] = axial[key]
         os.replace(tmp, path)
     finally:
         tmp.unlink(missing_ok=True)

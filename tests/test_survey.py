@@ -8,9 +8,9 @@ import matplotlib.image
 import pytest
 
 from solitons import catalogue
+from solitons.charge_survey import read_survey
 from solitons.cli import main
 from solitons.config import ConfigError
-from solitons.charge_survey import read_survey
 
 SURVEY = """
 [grid]
