@@ -7,7 +7,7 @@ The half plane covers the box of the 3D grid the configuration describes: rho si
 the stretch of x for rho and of z for z.  The winding is the initial map's a.
 
 Outputs are those of a 3D run, so every reader works: result.h5 holds the field rotated
-out onto that 3D grid (`/field`) and the axial density interpolated there
+out onto that 3D grid (`/field`; coarsened to at most 129 points per axis, same box) and the axial density interpolated there
 (`/energy_density`: per unit volume, so its sum times the site volumes is the energy up
 to the interpolation), plus the half-plane field and density under `/axial`
 (`read_axial`).  The verdict is the 3D one of the rotated-out field (size, thickness,
@@ -51,6 +51,18 @@ def make_axial_grid(spec: RunSpec) -> AxialGrid:
                      (g.stretch[0], g.stretch[2]))
 
 
+EMBED_POINTS = 129  # at most this many points per axis in the rotated-out 3D field
+
+
+def embedding_grid(grid3):
+    """The configuration's 3D grid, coarsened (same box) until no axis has more than
+    `EMBED_POINTS` points: the files' 3D field is for looking at and for seeding 3D runs
+    (which interpolate from the half plane itself), and 241^3 sites would cost 335 MB."""
+    while max(grid3.shape) > EMBED_POINTS:
+        grid3 = grid3.coarsened()
+    return grid3
+
+
 def axial_start(spec: RunSpec, grid: AxialGrid) -> np.ndarray:
     part = spec.initial.part
     m = axial_initial(grid, part["b"], part["size"], part["centre"][2])
@@ -88,7 +100,7 @@ def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwr
     if (out / RESULT).exists() and not overwrite:
         raise RunError(f"{out / RESULT} exists; pass --overwrite to replace it")
     grid = make_axial_grid(spec)
-    grid3 = make_grid(spec)
+    grid3 = embedding_grid(make_grid(spec))
     terms = make_terms(spec)
     try:
         check_invariance(terms, grid.winding)
