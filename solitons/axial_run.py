@@ -39,6 +39,7 @@ from solitons.diagnose import assess
 from solitons.io import check_output_dir, prepare_output_dir, stale_temporaries, write_json, write_result, write_xdmf
 from solitons.minimise import StoppingRule, minimise
 from solitons.outcomes import Outcome
+from solitons.stability import probe_density
 
 AXIAL_CAVEAT = ("axial minimum: stable within the axial ansatz only; in 3D it may be a saddle. Test it in 3D "
                 "from this result: initial.family = \"result\", initial.file = \"{path}\", initial.noise = 0.02")
@@ -122,6 +123,12 @@ def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwr
               f"{', stretch ' + str(grid.stretch) if any(grid.stretch) else ''}, winding {grid.winding}, "
               f"{spec.grid.scheme}-order scheme, method {relax_spec.method}", file=stream, flush=True)
         print(f"  model: {describe_model(model)}", file=stream, flush=True)
+    probe = probe_density(model.terms)
+    if probe["negative"] and stream is not None:
+        print("WARNING: the energy density is negative for some local fields "
+              f"(quartic part a = {probe['quartic']['a']:g}, b = {probe['quartic']['b']:g}; "
+              "bounded needs b >= 0 and a + 4b >= 0): the energy may not be bounded below",
+              file=stream, flush=True)
     energy0, _ = model.evaluate(start)
     if not np.isfinite(energy0):
         raise RunError(f"the initial data's energy is non-finite (E = {energy0}); nothing was written")
@@ -140,7 +147,7 @@ def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwr
     field3 = to_3d(m, grid, grid3)
     density3 = density_to_3d(density, grid, grid3)
     verdict = assess(field3, grid3, density3, charge, expected, virial["total"], result.status,
-                     None, result.history.energy)
+                     None, result.history.energy, probe["negative"])
     if verdict["verdict"] == Outcome.STABLE:
         verdict["warnings"].append(AXIAL_CAVEAT.format(path=out / RESULT))
     if abs(initial_charge - expected) > 0.02 * expected:
@@ -176,6 +183,7 @@ def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwr
         "backend": "jax (axial half plane)",
         "model": describe_model(model),
         "plain_model": kernel_couplings(model.terms) == (1.0, 1.0),
+        "bounded_below_probe": probe,
         "verdict": str(verdict["verdict"]),
         "evidence": verdict["evidence"],
         "warnings": verdict["warnings"],

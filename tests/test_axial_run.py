@@ -83,3 +83,13 @@ def test_scan_in_the_axial_mode(tmp_path):
     assert [r["terms.mass.coupling"] for r in rows] == [0.5, 1.0]
     # Hellmann-Feynman sign: a larger positive coupling of a positive term raises the minimum
     assert rows[1]["energy"] > rows[0]["energy"] and all(abs(r["hopf_charge"] - 1) < 1e-9 for r in rows)
+
+
+def test_a_lattice_minimum_of_an_unbounded_model_is_not_called_stable():
+    """b (dn . dn)^2 with b < 0 makes the energy unbounded below (derived, docs/
+    references.md [R19]); at b = -0.01 the axial lattice still holds a local minimum,
+    which must be reported as unbounded/metastable, never as stable (as in 3D)."""
+    result = solitons.relax({**SMALL, "terms": {"dirichlet": {}, "skyrme_faddeev": {},
+                                                "extended": {"kind": "dirichlet_squared", "coupling": -0.01}}})
+    assert result.verdict == "unbounded" and result.summary["bounded_below_probe"]["negative"]
+    assert any("not bounded below" in w for w in result.warnings)
