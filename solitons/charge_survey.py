@@ -71,6 +71,13 @@ DEFAULT_FAMILIES = (
 )
 
 
+def axial_families(charges) -> list[dict]:
+    """The axial mode's default: every axial map A_{a,b} with a b = Q for each charge
+    (the other families are not axially symmetric), size 1 + 0.1 (Q - 1)."""
+    return [{"family": "axial", "a": a, "b": q // a, "size": round(1.0 + 0.1 * (q - 1), 2)}
+            for q in charges for a in range(1, q + 1) if q % a == 0]
+
+
 def read_survey(path: str | Path, overrides=()) -> tuple[dict, list]:
     """Validate the [survey] table and every task's configuration before any work:
     (table, [(charge, family dict, seed, RunSpec)])."""
@@ -89,6 +96,8 @@ def read_survey(path: str | Path, overrides=()) -> tuple[dict, list]:
         raise ConfigError(source, "survey.families", families, "must be a list of tables such as "
                           "{ family = \"axial\", a = 1, b = 1, size = 1.0 }")
     base = load(path, overrides, ignore_tables=("survey",))
+    if base.grid.symmetry == "axial" and "families" not in table:
+        families = axial_families(charges)
     if len(seeds) > 1 and base.initial.noise == 0:
         raise ConfigError(source, "survey.seeds", seeds, "several seeds need initial.noise > 0 "
                           "(without noise every seed relaxes the same field)")

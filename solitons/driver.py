@@ -590,8 +590,7 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
             "initial_charge": initial_charge,
             "family": spec.initial.description,
             "label": curves["label"],
-            "curves": {"components": curves["components"], "pair_linking": curves["pair_linking"],
-                       "linking_charge": curves["linking_charge"], "open_chains": curves["open_chains"]},
+            "curves": curve_summary(curves),
             "virial": virial["total"],
             "virial_per_axis": virial["per_axis"],
             "converged": result.converged,
@@ -635,6 +634,11 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         checkpoint(result.field, result.steps, result.history, {"evaluations": result.evaluations}, "interrupted")
         stop.checkpoint, stop.step = checkpoint_path, result.steps
         raise
+
+
+def curve_summary(curves: dict) -> dict:
+    """The summary's ``curves`` entry from `solitons.knots.solution_label`."""
+    return {key: curves[key] for key in ("components", "pair_linking", "linking_charge", "open_chains")}
 
 
 def report(summary: dict, out_dir: str | Path, stream: TextIO | None = None) -> None:

@@ -57,6 +57,21 @@ TAP_OFFSETS = (-1, 0, 1, 2, 3, 4)
 PAD_WIDTH = 4
 
 
+def stretch_map(xi, s: float):
+    """The stretched coordinate x = s sinh(xi / s) (x = xi when s = 0)."""
+    return s * np.sinh(np.asarray(xi) / s) if s else np.asarray(xi, dtype=float)
+
+
+def stretch_jacobian(xi, s: float):
+    """dx/dxi of `stretch_map`."""
+    return np.cosh(np.asarray(xi) / s) if s else np.ones_like(np.asarray(xi, dtype=float))
+
+
+def stretch_slope(xi, s: float):
+    """d^2x/dxi^2 of `stretch_map`."""
+    return np.sinh(np.asarray(xi) / s) / s if s else np.zeros_like(np.asarray(xi, dtype=float))
+
+
 @dataclass(frozen=True)
 class Stencil:
     """The one-sided difference of a lattice scheme (see the module docstring).
@@ -168,13 +183,11 @@ class Grid:
 
     def to_physical(self, xi, axis: int):
         """x(xi) on ``axis``."""
-        s = self.stretch[axis]
-        return s * np.sinh(np.asarray(xi) / s) if s else np.asarray(xi, dtype=float)
+        return stretch_map(xi, self.stretch[axis])
 
     def jacobian(self, xi, axis: int):
         """dx/dxi on ``axis`` at computational coordinate(s) ``xi``."""
-        s = self.stretch[axis]
-        return np.cosh(np.asarray(xi) / s) if s else np.ones_like(np.asarray(xi, dtype=float))
+        return stretch_jacobian(xi, self.stretch[axis])
 
     def largest_cell(self) -> float:
         """Widest physical spacing between neighbouring sites (at the border of a stretched
@@ -190,8 +203,7 @@ class Grid:
 
     def jacobian_slope(self, xi, axis: int):
         """d^2x/dxi^2 on ``axis`` (zeros when uniform)."""
-        s = self.stretch[axis]
-        return np.sinh(np.asarray(xi) / s) / s if s else np.zeros_like(np.asarray(xi, dtype=float))
+        return stretch_slope(xi, self.stretch[axis])
 
     def site_weights(self) -> np.ndarray:
         """Product of dx/dxi over the three axes at each site, (Nx, Ny, Nz); ones when uniform."""

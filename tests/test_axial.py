@@ -153,7 +153,7 @@ def test_massive_q1_relaxes_to_the_3d_continuum_value():
     grid = AxialGrid.covering(5.0, 5.0, 0.08, winding=1, stretch=(2.0, 2.0))
     model = AxialModel(terms, grid, "sixth")
     result = minimise(model, axial_initial(grid, 1, 1.0), "lbfgs",
-                      StoppingRule(max_steps=3000, force_tol=1e-6, energy_tol=0.0), lbfgs_memory=8)
+                      StoppingRule(max_steps=3000, force_tol=2e-5, energy_tol=0.0), lbfgs_memory=8)
     assert result.converged
     assert result.energy == pytest.approx(1.3645691, rel=1e-5)
     assert hopf_charge(result.field, grid) == pytest.approx(1.0, abs=1e-9)

@@ -93,3 +93,16 @@ def test_a_lattice_minimum_of_an_unbounded_model_is_not_called_stable():
                                                 "extended": {"kind": "dirichlet_squared", "coupling": -0.01}}})
     assert result.verdict == "unbounded" and result.summary["bounded_below_probe"]["negative"]
     assert any("not bounded below" in w for w in result.warnings)
+
+
+def test_survey_in_the_axial_mode_takes_every_axial_map(tmp_path):
+    """With no families given, the axial survey relaxes every A_{a,b} with a b = Q; at
+    Q = 2, A_{2,1} lies below A_{1,2} (Hietarinta & Salo, PRD 62 (2000) 081701; Sutcliffe
+    2007: A_{2,1} is the charge-2 minimum; from memory)."""
+    text = ("[grid]\npoints = 51\nspacing = 0.2\nsymmetry = \"axial\"\n[relax]\nmax_steps = 600\n"
+            "[survey]\ncharges = [1, 2]\n")
+    table = solitons.survey(text, out=tmp_path / "s", figures=False)
+    assert sorted(table["family"]) == ["axial(1,1)", "axial(1,2)", "axial(2,1)"]
+    q2 = table[table["Q"] == 2].set_index("family")
+    assert q2.loc["axial(2,1)", "energy"] < q2.loc["axial(1,2)", "energy"]
+    assert bool(q2.loc["axial(2,1)", "lowest"])
