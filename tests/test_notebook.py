@@ -1,7 +1,7 @@
 """The example notebook shipped with the package runs from top to bottom in a fresh
 kernel (nbclient), and what it shows is the soliton it relaxed: charge 1 kept, as the
-Hopf map's charge requires (docs/references.md [R5, R6]).  Mechanics otherwise (common
-practice)."""
+Hopf map's charge requires (docs/references.md [R5, R6]).  Mechanics otherwise
+(common practice)."""
 
 from importlib import resources
 

@@ -1,6 +1,6 @@
 """Ctrl-C and SIGTERM at awkward moments end the command with 128 + signal, one message
-and no traceback (the shell's convention for a process ended by a signal, common
-practice; docs/references.md [R22]).  Each test sends a real signal to a real command."""
+and no traceback (the shell's convention for a process ended by a signal,
+common practice; docs/references.md [R22]).  Each test sends a real signal to a real command."""
 
 import os
 import signal
