@@ -51,7 +51,6 @@ from solitons.energy import NORMALISATION, SCHEMES, project_tangent
 from solitons.grid import PAD_WIDTH, STENCILS, VACUUM, Grid, stretch_jacobian, stretch_map, stretch_slope
 from solitons.terms import Term
 
-AXES = ("rho", "z")
 FORCE_RADIUS = 1.0  # model lengths: see AxialGrid.site_weights
 
 
