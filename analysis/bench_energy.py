@@ -7,9 +7,11 @@ same run with numpy.  Default model (dirichlet + skyrme_faddeev, second-order sc
 N = 64, 96, 128 on both routes (the fused numba kernel and jax autodiff), the fourth- and
 sixth-order schemes at 128; then, on the default sixth-order scheme at N = 64, 96, 128,
 the default model plus each built-in correction (coupling 0.1), plus all seven, and plus
-user-file copies of log_quartic and sextic, on the numba routes (the staged kernel; jax
-pointwise for the user terms), with the ratio to the default kernel at the same N and
-precision ("/default"); and each correction on the jax autodiff route at N = 64.  The kernel's work arrays are a padded component-major copy
+user-file copies of log_quartic and sextic, on the numba routes (the staged kernel; the
+user terms compiled pointwise, `solitons.pointwise`), with the ratio to the default kernel
+at the same N and precision ("/default"); the user copies at N = 64 also on the jax
+pointwise evaluator (the route before the compiled one, still the fallback); and each
+correction on the jax autodiff route at N = 64.  The kernel's work arrays are a padded component-major copy
 of the field (3 values per site), the density (1) and, per thread, a ring of nine
 planes of the 18 derivatives (a few MB): with the gradient (3) about 7 values, 56 bytes
 per site in float64.
@@ -28,6 +30,7 @@ import jax.numpy as jnp
 import numpy as np
 
 import solitons  # noqa: F401  (float64 on)
+from solitons import pointwise
 from solitons.energy import Model
 from solitons.grid import Grid
 from solitons.initial import add_noise, hopf_map
@@ -101,6 +104,9 @@ def main() -> None:
         cases += [(f"+ {name}", plus(name), n, "numba", "sixth", dtypes) for name in CORRECTIONS]
         cases.append(("+ all seven", everything, n, "numba", "sixth", dtypes))
         cases += [(f"+ user {name}", plus(name, user[name]), n, "numba", "sixth", dtypes) for name in user]
+    # the jax pointwise evaluator for the user copies (64 only: slow)
+    cases += [(f"+ user {name} (jax pw)", plus(name, user[name]), 64, "numba", "sixth", (jnp.float64,))
+              for name in user]
     # the jax autodiff route for each correction (64 only: slow)
     cases += [(f"+ {name}", plus(name), 64, "jax", "sixth", (jnp.float64,)) for name in CORRECTIONS]
     corrections_only = "--corrections" in sys.argv
@@ -113,6 +119,9 @@ def main() -> None:
             continue
         grid = Grid.centred(points, 8.0 / points, "fixed")
         model = Model(terms, grid, scheme, backend)
+        if label.endswith("(jax pw)"):
+            model.route._evaluator, model.route._note = pointwise.build(model.route.rest, model.route.needs_laplacian,
+                                                                        compiled=False)
         base = add_noise(hopf_map(grid, 1.0), grid, 0.01, 0)
         for dtype in dtypes:
             field = jnp.asarray(base, dtype=dtype)

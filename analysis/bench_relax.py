@@ -8,7 +8,7 @@ and L-BFGS also with the coarse start (relax on spacing 2h, interpolate, finish 
 without its shifted-Laplacian preconditioner (``plain``).
 
     python analysis/bench_relax.py [--points 64] [--spacing 0.125] [--scheme second] [--correction NAME:COUPLING]
-        [--cases ...] > analysis/bench_relax.txt
+        [--user NAME:COUPLING] [--cases ...] > analysis/bench_relax.txt
 """
 
 from __future__ import annotations
@@ -37,6 +37,9 @@ def main() -> None:
     parser.add_argument("--scheme", default="second")
     parser.add_argument("--correction", action="append", default=[],
                         help="NAME:COUPLING, a built-in term added to the plain model (repeatable)")
+    parser.add_argument("--user", action="append", default=[],
+                        help="NAME:COUPLING, a user-file copy of a built-in term (tests/user_copies.py: log_quartic, "
+                             "sextic) added to the plain model (repeatable)")
     parser.add_argument("--cases", default=None,
                         help="comma-separated method:route[:coarse][:f32][:plain] list (f32: L-BFGS history "
                              "stored in float32; plain: L-BFGS without the preconditioner); the first is the baseline "
@@ -46,9 +49,18 @@ def main() -> None:
     terms = (Term("dirichlet", BUILTIN_TERMS["dirichlet"]),
              Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"]))
     terms += tuple(Term(c.split(":")[0], BUILTIN_TERMS[c.split(":")[0]], float(c.split(":")[1])) for c in args.correction)
+    if args.user:
+        from pathlib import Path
+
+        from solitons.userterms import load_user_term
+
+        copies = Path(__file__).parents[1] / "tests" / "user_copies.py"
+        terms += tuple(Term(f"user {c.split(':')[0]}", load_user_term(copies, c.split(":")[0])[0],
+                            float(c.split(":")[1])) for c in args.user)
     start_field = hopf_map(grid, 1.0)
     rule = StoppingRule(max_steps=args.max_steps, force_tol=1e-3, energy_tol=0.0)
-    print(f"model {' + '.join(f'{t.coupling:g} {t.name}' for t in terms)}")
+    print(f"model {' + '.join(f'{t.coupling:g} {t.name}' for t in terms)}"
+          + ("; one evaluation before each timed run compiles the route's code" if args.user else ""))
     print(f"grid {args.points}^3, h = {args.spacing}, fixed border, {args.scheme}-order scheme; "
           f"stop at max force < 1e-3 or {args.max_steps} steps; preconditioner shift "
           f"{'default' if args.shift is None else args.shift}")
@@ -69,6 +81,8 @@ def main() -> None:
         preconditioner = "none" if plain else "laplacian"
         minimise_module.HISTORY_DTYPE = np.float32 if f32 else np.float64
         model = Model(terms, grid, args.scheme, backend)
+        if args.user:  # compile (or load) the route's code outside the timed part
+            model.evaluate(start_field)
         start = time.perf_counter()
         field0, coarse_steps = start_field, 0
         if coarse:

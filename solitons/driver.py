@@ -53,9 +53,11 @@ SUMMARY = "summary.json"
 CHECKPOINT = "checkpoint.h5"
 
 # Peak growth of resident memory per grid point during an L-BFGS relaxation (float64,
-# memory 4, numba kernel), measured with analysis/bench_memory.py: 578 (second order) and
-# 775 (fourth order) bytes per point at 96^3 (the jax route with memory 8 took 2174 and
-# 2474).  The diagnostics (Hopf charge FFTs in complex128, curves, figures) come on top and
+# memory 4), measured with analysis/bench_memory.py: 461-488 bytes per point at 96^3 for the
+# default model on the fused kernel (any scheme), 441 at 128^3 with a built-in correction
+# (staged kernel), 799 and 909 at 128^3 with a user term without and with a Laplacian
+# (the compiled pointwise part holds the local fields of every site and their derivative
+# rows).  The diagnostics (Hopf charge FFTs in complex128, curves, figures) come on top and
 # are not in that measurement, so the guard keeps the earlier, larger figure.
 BYTES_PER_POINT = 2600
 

@@ -6,9 +6,10 @@ energies, density and virial.  The Model picks one route object when it is built
   skyrme_faddeev, the default model): the fastest.
 - `StagedKernel`: any model.  The built-in terms with a row function in
   `solitons.staged` run there; every other term (user terms, a second term of a kind
-  already taken) is evaluated pointwise by jax on the staged local fields: jax
-  differentiates the per-site density (the octant average of `solitons.energy`), numba
-  does the stencils in both directions.
+  already taken) is evaluated pointwise on the staged local fields (`solitons.pointwise`):
+  jax differentiates the per-site density (the octant average of `solitons.energy`), the
+  result is compiled to a numba site loop (or, for a density the translator cannot read,
+  run by jax), and numba does the stencils in both directions.
 - `Autodiff`: jax autodiff of the whole lattice energy, the reference the tests compare
   the others with (backend "jax").
 
@@ -17,15 +18,17 @@ All three give the same site sum (the tests require agreement to 1e-12).
 
 from __future__ import annotations
 
-from functools import partial
 from typing import NamedTuple
 
-import jax
 import jax.numpy as jnp
 import numpy as np
 
-from solitons import staged
+from solitons import pointwise, staged
 from solitons.terms import BUILTIN_TERMS, Term
+
+# the pointwise terms on the compiled route (False: jax, the route before it; kept to
+# compare the two in analysis/bench_energy.py)
+COMPILE_POINTWISE = True
 
 
 class Measures(NamedTuple):
@@ -164,7 +167,8 @@ class StagedKernel:
         self.coefs, self.slots, self.rest = _staged_coefficients(model.terms)
         self.normalisation = NORMALISATION
         self.needs_laplacian = any(t.kind.needs_laplacian for t in model.terms)
-        self.name = "numba staged kernel" + (" + jax pointwise" if self.rest else "")
+        self._evaluator = None
+        self._note = ""
         self.extra_gather = any(k in self.slots for k in ("potential", "laplacian_squared", "chiral"))
         self._lap = {}
 
@@ -178,6 +182,21 @@ class StagedKernel:
                                                            _stretch_terms(grid), dtype)
         return self._lap[key]
 
+    @property
+    def evaluator(self):
+        """The pointwise evaluator of the terms not in a slot (built on first use: jax traces
+        the densities and the translation to numba source takes a few seconds)."""
+        if self._evaluator is None and self.rest:
+            self._evaluator, self._note = pointwise.build(self.rest, self.needs_laplacian, COMPILE_POINTWISE)
+        return self._evaluator
+
+    @property
+    def name(self):
+        if not self.rest:
+            return "numba staged kernel"
+        self.evaluator  # noqa: B018 - sets the note
+        return f"numba staged kernel + {self._note}"
+
     def _pointwise(self, field):
         """Energies, density, Q_a and derivative rows of the terms not in a slot."""
         model = self.model
@@ -186,11 +205,10 @@ class StagedKernel:
         loc = staged.stage_all(field, grid.spacing, grid.boundary == "periodic", model.stencil.taps, model.metric,
                                lap_info)
         weights = grid.site_weights() if grid.stretched else None
-        energies, dens, q, der = pointwise(self.rest, self.needs_laplacian, loc, weights)
+        energies, dens, q, der = self.evaluator(loc, weights)
         scale = self.normalisation * float(np.prod(grid.spacing))
-        rows = staged.DERIVATIVE_ROWS if self.needs_laplacian else staged.LOCAL_ROWS
         return ([scale * float(e) for e in energies], self.normalisation * np.asarray(dens, dtype=np.float64),
-                scale * np.asarray(q, dtype=np.float64), der[:rows])
+                scale * np.asarray(q, dtype=np.float64), der)
 
     def _run(self, field, out=None, gradient=True, density=False):
         field = np.ascontiguousarray(field)
@@ -230,89 +248,6 @@ class StagedKernel:
             q = q + user[2]
         energies = {t.name: energies[t.name] for t in self.model.terms}
         return Measures(energies, dens, _virial(sum(energies.values()), q))
-
-
-# XLA on the CPU materialises every intermediate of a large elementwise graph: on the
-# whole grid a user copy of log_quartic took 3400 ns per site at 64^3, in chunks of a few
-# thousand sites (lax.map, intermediates in cache) 1600 ns; one chunk sequence per core,
-# run from threads (jax releases the GIL), divides that by the core count.
-POINTWISE_CHUNK = 2048
-
-
-def _chunk_pieces(terms, needs_laplacian, loc, weights):
-    """Per-term weighted energy sums, the density, Q_a and the derivatives of the weighted
-    density sum with respect to the staged local fields, for loc (rows, M)."""
-    from solitons.energy import _octant_average
-
-    def split(values):
-        rows = lambda a, b: jnp.moveaxis(values[a:b], 0, -1)  # noqa: E731
-        forward = (rows(0, 3), rows(6, 9), rows(12, 15))
-        backward = (rows(3, 6), rows(9, 12), rows(15, 18))
-        lap = rows(21, 24) if needs_laplacian else None
-        return rows(18, 21), forward, backward, lap
-
-    def total(values):
-        centre, forward, backward, lap = split(values)
-        energies, dens = [], 0.0
-        for term in terms:
-            rho = term.coupling * _octant_average(term, centre, forward, backward, lap)
-            dens = dens + rho
-            energies.append(jnp.sum(rho * weights))
-        return sum(energies), (jnp.stack(energies), dens)
-
-    (_, (energies, dens)), der = jax.value_and_grad(total, has_aux=True)(loc)
-    q = [jnp.sum(der[6 * a:6 * a + 6] * loc[6 * a:6 * a + 6]) for a in range(3)]
-    if needs_laplacian:
-        q = [q[a] + jnp.sum(der[21:24] * loc[24 + 3 * a:27 + 3 * a]) for a in range(3)]
-    return energies, dens, jnp.stack(q), der
-
-
-@partial(jax.jit, static_argnums=(0, 1))
-def _pointwise_part(terms, needs_laplacian, loc, weights):
-    """`_chunk_pieces` over loc (rows, chunks * POINTWISE_CHUNK) one chunk at a time."""
-    rows, size = loc.shape
-    chunks = size // POINTWISE_CHUNK
-    stacked = loc.reshape(rows, chunks, POINTWISE_CHUNK).transpose(1, 0, 2)
-    energies, dens, q, der = jax.lax.map(lambda c: _chunk_pieces(terms, needs_laplacian, *c),
-                                         (stacked, weights.reshape(chunks, POINTWISE_CHUNK)))
-    return energies.sum(0), dens.reshape(size), q.sum(0), der.transpose(1, 0, 2).reshape(rows, size)
-
-
-def pointwise(terms, needs_laplacian, loc, weights=None, parts=None):
-    """`_chunk_pieces` of every site of loc (rows, Nx, Ny, Nz), numpy in and out: the
-    sites are padded to whole chunks (copies of the first site at weight zero, so that the
-    padding adds nothing and stays finite) and split into ``parts`` (default: the cores)
-    evaluated in parallel threads."""
-    import os
-    from concurrent.futures import ThreadPoolExecutor
-
-    rows = loc.shape[0]
-    shape = loc.shape[1:]
-    sites = int(np.prod(shape))
-    flat = loc.reshape(rows, sites)
-    w = np.ones(sites, dtype=loc.dtype) if weights is None else np.asarray(weights, dtype=loc.dtype).reshape(sites)
-    parts = parts or max(1, min(len(os.sched_getaffinity(0)), sites // POINTWISE_CHUNK or 1))
-    per_part = -(-sites // (parts * POINTWISE_CHUNK)) * POINTWISE_CHUNK
-    padded = per_part * parts
-    if padded > sites:
-        flat = np.concatenate([flat, np.repeat(flat[:, :1], padded - sites, axis=1)], axis=1)
-        w = np.concatenate([w, np.zeros(padded - sites, dtype=w.dtype)])
-
-    def run(p):
-        piece = slice(p * per_part, (p + 1) * per_part)
-        out = _pointwise_part(terms, needs_laplacian, jnp.asarray(flat[:, piece]), jnp.asarray(w[piece]))
-        return [np.asarray(a) for a in out]
-
-    if parts == 1:
-        results = [run(0)]
-    else:
-        with ThreadPoolExecutor(parts) as pool:
-            results = list(pool.map(run, range(parts)))
-    energies = sum(r[0] for r in results)
-    dens = np.concatenate([r[1] for r in results])[:sites].reshape(shape)
-    q = sum(r[2] for r in results)
-    der = np.concatenate([r[3] for r in results], axis=1)[:, :sites].reshape((rows,) + shape)
-    return energies, dens, q, der
 
 
 def choose_route(model):

@@ -117,21 +117,21 @@ def user_kinds(tmp_path_factory):
     path = tmp_path_factory.mktemp("user") / "tilted.py"
     path.write_text(textwrap.dedent(TILTED))
     kinds = {name: load_user_term(COPIES, name)[0] for name in ("log_quartic", "sextic")}
+    kinds["laplacian_squared"] = load_user_term(COPIES, "laplacian_squared", laplacian=True)[0]
     kinds["tilted_laplacian"] = load_user_term(path, "tilted_laplacian", laplacian=True)[0]
     return kinds
 
 
 def test_user_copies_equal_the_builtin_terms(user_kinds):
-    """A user-file copy of log_quartic and of sextic (jax pointwise on the staged local
-    fields) gives the built-in row functions' numbers (numba, written by hand): energy,
-    gradient and virial to 1e-12 (derived: the same density)."""
+    """User-file copies of log_quartic, sextic and laplacian_squared (compiled pointwise
+    on the staged local fields) give the built-in row functions' numbers (numba, written
+    by hand): energy, gradient and virial to 1e-12 (derived: the same density)."""
     grid = grid_of("fixed")
     field = add_noise(hopf_map(grid, 1.4), grid, 0.3, 11)
-    builtin = Model(BASE + (Term("lq", BUILTIN_TERMS["log_quartic"], 0.3), Term("s", BUILTIN_TERMS["sextic"], 0.05)),
-                    grid, "sixth")
-    user = Model(BASE + (Term("lq", user_kinds["log_quartic"], 0.3), Term("s", user_kinds["sextic"], 0.05)),
-                 grid, "sixth")
-    assert not builtin.route.rest and len(user.route.rest) == 2
+    couplings = {"log_quartic": 0.3, "sextic": 0.05, "laplacian_squared": 0.1}
+    builtin = Model(BASE + tuple(Term(k, BUILTIN_TERMS[k], c) for k, c in couplings.items()), grid, "sixth")
+    user = Model(BASE + tuple(Term(k, user_kinds[k], c) for k, c in couplings.items()), grid, "sixth")
+    assert not builtin.route.rest and len(user.route.rest) == 3
     e_b, g_b = builtin.evaluate(field)
     e_u, g_u = user.evaluate(field)
     assert abs(e_u - e_b) < 1e-12 * e_b
@@ -141,8 +141,9 @@ def test_user_copies_equal_the_builtin_terms(user_kinds):
     assert np.allclose(user.virial(field)["per_axis"], builtin.virial(field)["per_axis"], atol=1e-12, rtol=0)
 
 
-@pytest.mark.parametrize("kind", ["periodic", "stretched"])
-def test_user_terms_and_duplicate_kinds_equal_autodiff(user_kinds, kind):
+@pytest.mark.parametrize("scheme, kind", [("sixth", "periodic"), ("sixth", "stretched"), ("fourth", "fixed"),
+                                          ("second", "periodic")])
+def test_user_terms_and_duplicate_kinds_equal_autodiff(user_kinds, scheme, kind):
     """A user term with n and Laplacian dependence, and a second term of a built-in kind
     (which takes the pointwise route), next to built-in terms."""
     grid = grid_of(kind)
@@ -151,8 +152,9 @@ def test_user_terms_and_duplicate_kinds_equal_autodiff(user_kinds, kind):
                     Term("dirichlet_again", BUILTIN_TERMS["dirichlet"], 0.2),
                     Term("potential", BUILTIN_TERMS["potential"], 0.5),
                     Term("laplacian_squared", BUILTIN_TERMS["laplacian_squared"], 0.1))
-    fast = assert_routes_agree(terms, grid, "sixth", field)
+    fast = assert_routes_agree(terms, grid, scheme, field)
     assert [t.name for t in fast.route.rest] == ["tilted", "dirichlet_again"]
+    assert fast.route.name == "numba staged kernel + compiled pointwise"
 
 
 def test_route_choice():
