@@ -154,7 +154,7 @@ def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwr
     if abs(initial_charge - expected) > 0.02 * expected:
         verdict["warnings"].append(f"the initial data measures Q = {initial_charge:.4f} against the family's "
                                    f"{expected}: the half plane is too coarse or too small for this size")
-    curves = solution_label(field3, grid3)
+    curves = solution_label(field3, grid3, density=density3)
     summary = {
         "energy": float(sum(energies.values())),
         "terms": energies,

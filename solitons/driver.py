@@ -575,7 +575,7 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         if coarse is not None and not coarse["used"]:
             verdict["warnings"].append(f"the coarse start was discarded ({coarse['reason']}); "
                                        "the run started from the initial data on the fine grid")
-        curves = solution_label(field, grid)
+        curves = solution_label(field, grid, density=density)
         if curves["open_chains"]:
             verdict["warnings"].append(f"{curves['open_chains']} preimage curves are cut by the box: "
                                        "the soliton touches the border")
@@ -640,7 +640,7 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
 
 def curve_summary(curves: dict) -> dict:
     """The summary's ``curves`` entry from `solitons.knots.solution_label`."""
-    return {key: curves[key] for key in ("components", "pair_linking", "linking_charge", "open_chains")}
+    return {key: curves[key] for key in ("components", "pair_linking", "linking_charge", "open_chains", "symmetry")}
 
 
 def report(summary: dict, out_dir: str | Path, stream: TextIO | None = None) -> None:

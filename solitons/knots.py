@@ -14,9 +14,15 @@ practice); anything else is reported by its polynomial.
 Label of a solution (README, "Solution labels"): the position curve (the preimage of a
 value next to -e3) split into components; each component gets its knot name and its share
 of the charge, the linking number of that component with the preimage of a second, distant
-value.  The class letter follows the literature's A / L / K classes: A one unknotted
-component, K one knotted component, L several components; e.g. ``A:unknot[3]``,
-``K:trefoil[7]``, ``L:unknot[2]+unknot[3] lk=1``.
+value.  The class follows the literature's A / K / L classes (Sutcliffe 2007):
+
+- ``A_{a,b}``: the energy density is axially symmetric (`solitons.symmetry`), whatever
+  the position curve looks like (for A_{2,2} it is two linked circles).  b is the number of
+  times the position curve winds about the symmetry axis (the b-fold circle Z0 = 0 of
+  W = Z1^a / Z0^b), a = Q / b;
+- otherwise ``K:`` one knotted component, ``L:`` several components, ``A~:`` one
+  unknotted component without axial symmetry (a buckled or twisted unknot); e.g.
+  ``K:trefoil[7]``, ``L:unknot[2]+unknot[3] lk=1``, ``A~:unknot[3]``.
 """
 
 from __future__ import annotations
@@ -152,10 +158,24 @@ def alexander_text(coefficients) -> str:
     return text
 
 
-def solution_label(field: np.ndarray, grid, b_field=None) -> dict:
+def dirichlet_density(field: np.ndarray, grid) -> np.ndarray:
+    """sum_i |d_i n|^2 by central differences on the grid's physical coordinates: a density
+    every solution with a symmetry shares it with (for the axial test when no model
+    density is given)."""
+    total = np.zeros(field.shape[:3])
+    for a, coordinate in enumerate(grid.axes()):
+        derivative = np.gradient(field, coordinate, axis=a)
+        total += np.sum(derivative * derivative, axis=-1)
+    return total
+
+
+def solution_label(field: np.ndarray, grid, b_field=None, density=None) -> dict:
     """Components of the position curve, their knot types, charge shares and mutual
-    linking, and the label string (module docstring).  ``open`` counts chains cut by the
-    box (then the label is marked incomplete)."""
+    linking, the axial symmetry of ``density`` (the model's energy density; default the
+    Dirichlet density of the field) and the label string (module docstring).  ``open``
+    counts chains cut by the box (then the label is marked incomplete)."""
+    from solitons.symmetry import axial_deviation, winding_about
+
     if b_field is None:
         b_field = np.asarray(topological_field(field, grid))
     chains = preimage_chains(field, grid, POSITION_VALUE, b_field=b_field)
@@ -178,8 +198,16 @@ def solution_label(field: np.ndarray, grid, b_field=None) -> dict:
         for j in range(i + 1, len(closed)):
             pair_links[f"{i},{j}"] = -linking_number(closed[i], closed[j])
     total_link = -sum(linking_number(p, q) for p in closed for q in closed_others)
+    symmetry = axial_deviation(dirichlet_density(field, grid) if density is None else density, grid) \
+        if components else None
     if not components:
         text = "none"
+    elif symmetry["axial"]:
+        windings = [winding_about(c, symmetry["centre"], symmetry["axis"]) for c in closed]
+        b = round(sum(abs(w) for w in windings))
+        q = round(sum(c["share"] for c in components))
+        symmetry["windings"] = windings
+        text = f"A_{{{q // b},{b}}}" if b > 0 and q % b == 0 else f"A_{{?,{b}}}"
     else:
         parts = "+".join(f"{c['knot']}[{round(c['share'])}]" for c in components)
         if len(components) > 1:
@@ -187,9 +215,9 @@ def solution_label(field: np.ndarray, grid, b_field=None) -> dict:
             links = [round(v) for v in pair_links.values()]
             parts += " lk=" + ",".join(str(v) for v in links)
         else:
-            letter = "A" if components[0]["knot"] == "unknot" else "K"
+            letter = "A~" if components[0]["knot"] == "unknot" else "K"
         text = f"{letter}:{parts}"
     if n_open:
         text += " (incomplete: curves cut by the box)"
     return {"label": text, "components": components, "pair_linking": pair_links,
-            "linking_charge": total_link, "open_chains": n_open}
+            "linking_charge": total_link, "open_chains": n_open, "symmetry": symmetry}

@@ -61,6 +61,69 @@ _EXTRA_INDEX = (2, 3, 4, 6, 7, 8, 9)  # EXTRA_KINDS -> position of the coupling 
 # ---- stage 1: local fields of one row ----
 
 @nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _stage_wide(buf, r, ci, cj, taps, ixf, ixb, iyf, iyb, fz, bz, loc):
+    """n and the six one-sided differences of the wide stencils (r = PAD_WIDTH): one k loop
+    per component over 1-D row views indexed from 0 (one fused loop instead of one per
+    axis: 37 against 46 ns per site for the whole staged pass at 128^3, sixth order)."""
+    nz = loc.shape[1]
+    real = buf.dtype.type
+    t0, t2, t3, t4, t5 = real(taps[0]), real(taps[2]), real(taps[3]), real(taps[4]), real(taps[5])
+    for c in range(3):
+        v = buf[c, ci, cj, r:r + nz]
+        xp1, xm1 = buf[c, ci + 1, cj, r:r + nz], buf[c, ci - 1, cj, r:r + nz]
+        xp2, xm2 = buf[c, ci + 2, cj, r:r + nz], buf[c, ci - 2, cj, r:r + nz]
+        xp3, xm3 = buf[c, ci + 3, cj, r:r + nz], buf[c, ci - 3, cj, r:r + nz]
+        xp4, xm4 = buf[c, ci + 4, cj, r:r + nz], buf[c, ci - 4, cj, r:r + nz]
+        yp1, ym1 = buf[c, ci, cj + 1, r:r + nz], buf[c, ci, cj - 1, r:r + nz]
+        yp2, ym2 = buf[c, ci, cj + 2, r:r + nz], buf[c, ci, cj - 2, r:r + nz]
+        yp3, ym3 = buf[c, ci, cj + 3, r:r + nz], buf[c, ci, cj - 3, r:r + nz]
+        yp4, ym4 = buf[c, ci, cj + 4, r:r + nz], buf[c, ci, cj - 4, r:r + nz]
+        zp1, zm1 = buf[c, ci, cj, r + 1:r + 1 + nz], buf[c, ci, cj, r - 1:r - 1 + nz]
+        zp2, zm2 = buf[c, ci, cj, r + 2:r + 2 + nz], buf[c, ci, cj, r - 2:r - 2 + nz]
+        zp3, zm3 = buf[c, ci, cj, r + 3:r + 3 + nz], buf[c, ci, cj, r - 3:r - 3 + nz]
+        zp4, zm4 = buf[c, ci, cj, r + 4:r + 4 + nz], buf[c, ci, cj, r - 4:r - 4 + nz]
+        own = loc[N_ROW + c]
+        fxr, bxr, fyr, byr, fzr, bzr = loc[c], loc[3 + c], loc[6 + c], loc[9 + c], loc[12 + c], loc[15 + c]
+        for k in range(nz):
+            n = v[k]
+            own[k] = n
+            fxr[k] = (t0 * (xm1[k] - n) + t2 * (xp1[k] - n) + t3 * (xp2[k] - n) + t4 * (xp3[k] - n)
+                      + t5 * (xp4[k] - n)) * ixf
+            bxr[k] = -(t0 * (xp1[k] - n) + t2 * (xm1[k] - n) + t3 * (xm2[k] - n) + t4 * (xm3[k] - n)
+                       + t5 * (xm4[k] - n)) * ixb
+            fyr[k] = (t0 * (ym1[k] - n) + t2 * (yp1[k] - n) + t3 * (yp2[k] - n) + t4 * (yp3[k] - n)
+                      + t5 * (yp4[k] - n)) * iyf
+            byr[k] = -(t0 * (yp1[k] - n) + t2 * (ym1[k] - n) + t3 * (ym2[k] - n) + t4 * (ym3[k] - n)
+                       + t5 * (ym4[k] - n)) * iyb
+            fzr[k] = (t0 * (zm1[k] - n) + t2 * (zp1[k] - n) + t3 * (zp2[k] - n) + t4 * (zp3[k] - n)
+                      + t5 * (zp4[k] - n)) * fz[k]
+            bzr[k] = -(t0 * (zp1[k] - n) + t2 * (zm1[k] - n) + t3 * (zm2[k] - n) + t4 * (zm3[k] - n)
+                       + t5 * (zm4[k] - n)) * bz[k]
+
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _stage_narrow(buf, r, ci, cj, ixf, ixb, iyf, iyb, fz, bz, loc):
+    """`_stage_wide` for the one-site difference of the second-order scheme (r = 1)."""
+    nz = loc.shape[1]
+    for c in range(3):
+        v = buf[c, ci, cj, r:r + nz]
+        xp1, xm1 = buf[c, ci + 1, cj, r:r + nz], buf[c, ci - 1, cj, r:r + nz]
+        yp1, ym1 = buf[c, ci, cj + 1, r:r + nz], buf[c, ci, cj - 1, r:r + nz]
+        zp1, zm1 = buf[c, ci, cj, r + 1:r + 1 + nz], buf[c, ci, cj, r - 1:r - 1 + nz]
+        own = loc[N_ROW + c]
+        fxr, bxr, fyr, byr, fzr, bzr = loc[c], loc[3 + c], loc[6 + c], loc[9 + c], loc[12 + c], loc[15 + c]
+        for k in range(nz):
+            n = v[k]
+            own[k] = n
+            fxr[k] = (xp1[k] - n) * ixf
+            bxr[k] = (n - xm1[k]) * ixb
+            fyr[k] = (yp1[k] - n) * iyf
+            byr[k] = (n - ym1[k]) * iyb
+            fzr[k] = (zp1[k] - n) * fz[k]
+            bzr[k] = (n - zm1[k]) * bz[k]
+
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
 def _stage_row(buf, r, ci, cj, taps, ixf, ixb, iyf, iyb, fz, bz, lap, lap_x, lap_y, lap_z, reach, loc):
     """loc[0:18] = differences (x+, x-, y+, y-, z+, z-; three components each), loc[18:21] =
     n; with ``lap``: loc[21:24] = sum_a sum_o s_a[o] n(x + o e_a) and loc[24 + 3a + c] the
@@ -69,87 +132,83 @@ def _stage_row(buf, r, ci, cj, taps, ixf, ixb, iyf, iyb, fz, bz, lap, lap_x, lap
     lap_y (2, 7) of this row, lap_z (2, 7, Nz) per site."""
     nz = loc.shape[1]
     real = buf.dtype.type
-    t0, t2, t3, t4, t5 = real(taps[0]), real(taps[2]), real(taps[3]), real(taps[4]), real(taps[5])
+    if r == 1:
+        _stage_narrow(buf, r, ci, cj, ixf, ixb, iyf, iyb, fz, bz, loc)
+    else:
+        _stage_wide(buf, r, ci, cj, taps, ixf, ixb, iyf, iyb, fz, bz, loc)
+    if not lap:
+        return
+    if reach == 3:
+        _stage_laplacian_wide(buf, r, ci, cj, lap_x, lap_y, lap_z, loc)
+        return
     for c in range(3):
-        centre = buf[c, ci, cj, r:r + nz]
-        own = loc[N_ROW + c]
+        total = loc[LAP_ROW + c]
         for k in range(nz):
-            own[k] = centre[k]
+            total[k] = real(0.0)
         for axis in range(3):
-            fw = loc[6 * axis + c]
-            bw = loc[6 * axis + 3 + c]
-            if axis == 0:
-                p1, m1 = buf[c, ci + 1, cj, r:r + nz], buf[c, ci - 1, cj, r:r + nz]
-            elif axis == 1:
-                p1, m1 = buf[c, ci, cj + 1, r:r + nz], buf[c, ci, cj - 1, r:r + nz]
-            else:
-                p1, m1 = buf[c, ci, cj, r + 1:r + 1 + nz], buf[c, ci, cj, r - 1:r - 1 + nz]
-            sf, sb = ixf, ixb
-            if axis == 1:
-                sf, sb = iyf, iyb
-            if r == 1:  # the one-site difference
-                if axis == 2:
-                    for k in range(nz):
-                        fw[k] = (p1[k] - centre[k]) * fz[k]
-                        bw[k] = (centre[k] - m1[k]) * bz[k]
-                else:
-                    for k in range(nz):
-                        fw[k] = (p1[k] - centre[k]) * sf
-                        bw[k] = (centre[k] - m1[k]) * sb
-                continue
-            if axis == 0:
-                p2, m2 = buf[c, ci + 2, cj, r:r + nz], buf[c, ci - 2, cj, r:r + nz]
-                p3, m3 = buf[c, ci + 3, cj, r:r + nz], buf[c, ci - 3, cj, r:r + nz]
-                p4, m4 = buf[c, ci + 4, cj, r:r + nz], buf[c, ci - 4, cj, r:r + nz]
-            elif axis == 1:
-                p2, m2 = buf[c, ci, cj + 2, r:r + nz], buf[c, ci, cj - 2, r:r + nz]
-                p3, m3 = buf[c, ci, cj + 3, r:r + nz], buf[c, ci, cj - 3, r:r + nz]
-                p4, m4 = buf[c, ci, cj + 4, r:r + nz], buf[c, ci, cj - 4, r:r + nz]
-            else:
-                p2, m2 = buf[c, ci, cj, r + 2:r + 2 + nz], buf[c, ci, cj, r - 2:r - 2 + nz]
-                p3, m3 = buf[c, ci, cj, r + 3:r + 3 + nz], buf[c, ci, cj, r - 3:r - 3 + nz]
-                p4, m4 = buf[c, ci, cj, r + 4:r + 4 + nz], buf[c, ci, cj, r - 4:r - 4 + nz]
-            if axis == 2:
-                for k in range(nz):
-                    n = centre[k]
-                    fw[k] = (t0 * (m1[k] - n) + t2 * (p1[k] - n) + t3 * (p2[k] - n) + t4 * (p3[k] - n)
-                             + t5 * (p4[k] - n)) * fz[k]
-                    bw[k] = -(t0 * (p1[k] - n) + t2 * (m1[k] - n) + t3 * (m2[k] - n) + t4 * (m3[k] - n)
-                              + t5 * (m4[k] - n)) * bz[k]
-            else:
-                for k in range(nz):
-                    n = centre[k]
-                    fw[k] = (t0 * (m1[k] - n) + t2 * (p1[k] - n) + t3 * (p2[k] - n) + t4 * (p3[k] - n)
-                             + t5 * (p4[k] - n)) * sf
-                    bw[k] = -(t0 * (p1[k] - n) + t2 * (m1[k] - n) + t3 * (m2[k] - n) + t4 * (m3[k] - n)
-                              + t5 * (m4[k] - n)) * sb
-        if lap:
-            total = loc[LAP_ROW + c]
+            part = loc[SCALE_ROW + 3 * axis + c]
             for k in range(nz):
-                total[k] = real(0.0)
-            for axis in range(3):
-                part = loc[SCALE_ROW + 3 * axis + c]
-                for k in range(nz):
-                    part[k] = real(0.0)
-                for o in range(-reach, reach + 1):
-                    if axis == 0:
-                        values = buf[c, ci + o, cj, r:r + nz]
-                        s, v = lap_x[0, o + 3], lap_x[1, o + 3]
-                        for k in range(nz):
-                            total[k] += s * values[k]
-                            part[k] += v * values[k]
-                    elif axis == 1:
-                        values = buf[c, ci, cj + o, r:r + nz]
-                        s, v = lap_y[0, o + 3], lap_y[1, o + 3]
-                        for k in range(nz):
-                            total[k] += s * values[k]
-                            part[k] += v * values[k]
-                    else:
-                        values = buf[c, ci, cj, r + o:r + o + nz]
-                        sz, vz = lap_z[0, o + 3], lap_z[1, o + 3]
-                        for k in range(nz):
-                            total[k] += sz[k] * values[k]
-                            part[k] += vz[k] * values[k]
+                part[k] = real(0.0)
+            for o in range(-reach, reach + 1):
+                if axis == 0:
+                    values = buf[c, ci + o, cj, r:r + nz]
+                    s, v = lap_x[0, o + 3], lap_x[1, o + 3]
+                    for k in range(nz):
+                        total[k] += s * values[k]
+                        part[k] += v * values[k]
+                elif axis == 1:
+                    values = buf[c, ci, cj + o, r:r + nz]
+                    s, v = lap_y[0, o + 3], lap_y[1, o + 3]
+                    for k in range(nz):
+                        total[k] += s * values[k]
+                        part[k] += v * values[k]
+                else:
+                    values = buf[c, ci, cj, r + o:r + o + nz]
+                    sz, vz = lap_z[0, o + 3], lap_z[1, o + 3]
+                    for k in range(nz):
+                        total[k] += sz[k] * values[k]
+                        part[k] += vz[k] * values[k]
+
+
+@nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
+def _stage_laplacian_wide(buf, r, ci, cj, lap_x, lap_y, lap_z, loc):
+    """The Laplacian rows of `_stage_row` for the seven-point central stencils (reach 3),
+    one fused k loop per component."""
+    nz = loc.shape[1]
+    sx0, sx1, sx2, sx3, sx4, sx5, sx6 = lap_x[0, 0], lap_x[0, 1], lap_x[0, 2], lap_x[0, 3], lap_x[0, 4], \
+        lap_x[0, 5], lap_x[0, 6]
+    vx0, vx1, vx2, vx3, vx4, vx5, vx6 = lap_x[1, 0], lap_x[1, 1], lap_x[1, 2], lap_x[1, 3], lap_x[1, 4], \
+        lap_x[1, 5], lap_x[1, 6]
+    sy0, sy1, sy2, sy3, sy4, sy5, sy6 = lap_y[0, 0], lap_y[0, 1], lap_y[0, 2], lap_y[0, 3], lap_y[0, 4], \
+        lap_y[0, 5], lap_y[0, 6]
+    vy0, vy1, vy2, vy3, vy4, vy5, vy6 = lap_y[1, 0], lap_y[1, 1], lap_y[1, 2], lap_y[1, 3], lap_y[1, 4], \
+        lap_y[1, 5], lap_y[1, 6]
+    sz0, sz1, sz2, sz3, sz4, sz5, sz6 = lap_z[0, 0], lap_z[0, 1], lap_z[0, 2], lap_z[0, 3], lap_z[0, 4], \
+        lap_z[0, 5], lap_z[0, 6]
+    vz0, vz1, vz2, vz3, vz4, vz5, vz6 = lap_z[1, 0], lap_z[1, 1], lap_z[1, 2], lap_z[1, 3], lap_z[1, 4], \
+        lap_z[1, 5], lap_z[1, 6]
+    for c in range(3):
+        x0, x1, x2 = buf[c, ci - 3, cj, r:r + nz], buf[c, ci - 2, cj, r:r + nz], buf[c, ci - 1, cj, r:r + nz]
+        x3 = buf[c, ci, cj, r:r + nz]
+        x4, x5, x6 = buf[c, ci + 1, cj, r:r + nz], buf[c, ci + 2, cj, r:r + nz], buf[c, ci + 3, cj, r:r + nz]
+        y0, y1, y2 = buf[c, ci, cj - 3, r:r + nz], buf[c, ci, cj - 2, r:r + nz], buf[c, ci, cj - 1, r:r + nz]
+        y4, y5, y6 = buf[c, ci, cj + 1, r:r + nz], buf[c, ci, cj + 2, r:r + nz], buf[c, ci, cj + 3, r:r + nz]
+        z0, z1, z2 = buf[c, ci, cj, r - 3:r - 3 + nz], buf[c, ci, cj, r - 2:r - 2 + nz], \
+            buf[c, ci, cj, r - 1:r - 1 + nz]
+        z4, z5, z6 = buf[c, ci, cj, r + 1:r + 1 + nz], buf[c, ci, cj, r + 2:r + 2 + nz], \
+            buf[c, ci, cj, r + 3:r + 3 + nz]
+        total, px, py, pz = loc[LAP_ROW + c], loc[SCALE_ROW + c], loc[SCALE_ROW + 3 + c], loc[SCALE_ROW + 6 + c]
+        for k in range(nz):
+            n = x3[k]
+            ax = sx0 * x0[k] + sx1 * x1[k] + sx2 * x2[k] + sx3 * n + sx4 * x4[k] + sx5 * x5[k] + sx6 * x6[k]
+            ay = sy0 * y0[k] + sy1 * y1[k] + sy2 * y2[k] + sy3 * n + sy4 * y4[k] + sy5 * y5[k] + sy6 * y6[k]
+            az = (sz0[k] * z0[k] + sz1[k] * z1[k] + sz2[k] * z2[k] + sz3[k] * n + sz4[k] * z4[k] + sz5[k] * z5[k]
+                  + sz6[k] * z6[k])
+            total[k] = ax + ay + az
+            px[k] = vx0 * x0[k] + vx1 * x1[k] + vx2 * x2[k] + vx3 * n + vx4 * x4[k] + vx5 * x5[k] + vx6 * x6[k]
+            py[k] = vy0 * y0[k] + vy1 * y1[k] + vy2 * y2[k] + vy3 * n + vy4 * y4[k] + vy5 * y5[k] + vy6 * y6[k]
+            pz[k] = (vz0[k] * z0[k] + vz1[k] * z1[k] + vz2[k] * z2[k] + vz3[k] * n + vz4[k] * z4[k]
+                     + vz5[k] * z5[k] + vz6[k] * z6[k])
 
 
 # ---- stage 2: row functions of the correction terms ----
@@ -456,14 +515,22 @@ _LN2_HI, _LN2_LO = 6.93147180369123816490e-01, 1.90821492927058770002e-10  # fdl
 _MANTISSA, _ONE_BITS = 0x000FFFFFFFFFFFFF, 0x3FF0000000000000
 
 
+# ln m = 2 s + s z P(z), z = s^2 <= 0.0294: P is the degree-6 Chebyshev least-squares fit
+# of the atanh series 2 (1/3 + z/5 + z^2/7 + ...) on [0, 0.0294] (4001 Chebyshev nodes,
+# numpy.polynomial; computed for this module): largest error 6e-16 in P, below 1e-17
+# relative in ln m.  Seven terms where the series itself needs twelve.
+_P0, _P1, _P2, _P3 = 0.6666666666666671, 0.39999999999869174, 0.2857142863543568, 0.22222209893871528
+_P4, _P5, _P6 = 0.18182967142341924, 0.15329392430696023, 0.14642966939012375
+
+
 @nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
 def vector_log(values, work, exponents):
     """In place: values[k] = ln(values[k]) for positive normal float64 values, in loops
     that vectorise (libm's log is a scalar call).  x = 2^e m with m in [sqrt(1/2),
-    sqrt(2)); ln m = 2 atanh(s), s = (m - 1) / (m + 1), |s| < 0.172, summed to s^25 (the
-    next term is below 1e-20 of ln m); ln 2 split in two parts (fdlibm's constants).
-    Within 3 units in the last place of np.log (tested).  ``work`` (int64) and
-    ``exponents`` (float64): rows as long, distinct from ``values``."""
+    sqrt(2)); ln m = 2 atanh(s) = 2 s + s z P(z), s = (m - 1) / (m + 1), |s| < 0.172,
+    z = s^2, P the fitted polynomial above; ln 2 split in two parts (fdlibm's constants).  Within 4 units in the last place of np.log
+    (tested).  ``work`` (int64) and ``exponents`` (float64): rows as long, distinct from
+    ``values``."""
     bits = values.view(np.int64)
     n = values.shape[0]
     for k in range(n):
@@ -479,10 +546,9 @@ def vector_log(values, work, exponents):
         e = e + 1.0 if big else e
         s = (m - 1.0) / (m + 1.0)
         z = s * s
-        series = 1.0 + z * (1.0 / 3 + z * (1.0 / 5 + z * (1.0 / 7 + z * (1.0 / 9 + z * (1.0 / 11 + z * (
-            1.0 / 13 + z * (1.0 / 15 + z * (1.0 / 17 + z * (1.0 / 19 + z * (1.0 / 21 + z * (1.0 / 23 + z * (
-                1.0 / 25))))))))))))
-        values[k] = e * _LN2_HI + (2.0 * s * series + e * _LN2_LO)
+        w = z * z
+        tail = z * (_P0 + w * (_P2 + w * (_P4 + w * _P6))) + w * (_P1 + w * (_P3 + w * _P5))
+        values[k] = e * _LN2_HI + (s * (2.0 + tail) + e * _LN2_LO)
 
 
 @nb.njit(cache=True, fastmath=_FAST, error_model="numpy")

@@ -72,18 +72,56 @@ def test_alexander_from_knot_floer_ranks():
 GRID = Grid.centred(96, 0.125, "fixed")
 
 
-@pytest.mark.parametrize("part, label", [
-    ({"family": "axial", "a": 1, "b": 1, "size": 1.5}, "A:unknot[1]"),
-    ({"family": "torus_knot", "alpha": 1, "beta": 1, "a": 3, "b": 2, "size": 1.5}, "K:trefoil[5]"),
-    ({"family": "axial", "a": 2, "b": 2, "size": 1.5}, "L:unknot[2]+unknot[2] lk=1"),
+@pytest.mark.parametrize("part, label, components", [
+    ({"family": "axial", "a": 1, "b": 1, "size": 1.5}, "A_{1,1}", 1),
+    ({"family": "axial", "a": 2, "b": 2, "size": 1.5, "orientation": (30.0, 50.0, 0.0)}, "A_{2,2}", 2),
+    ({"family": "axial", "a": 1, "b": 2, "size": 1.5}, "A_{1,2}", 1),
+    ({"family": "axial", "a": 3, "b": 1, "size": 1.5, "orientation": (0.0, 90.0, 0.0)}, "A_{3,1}", 1),
+    ({"family": "torus_knot", "alpha": 1, "beta": 1, "a": 3, "b": 2, "size": 1.5}, "K:trefoil[5]", 1),
+    ({"family": "rational", "alpha": 1, "beta": 1, "factors": [[1, 1], [1, 2, -1.0]], "size": 1.5},
+     "L:unknot[2]+unknot[3] lk=", 2),
 ])
-def test_position_curve_labels_of_the_maps(part, label):
-    """The Hopf map's position curve is one unknot; the (3, 2) torus-knot map's is a trefoil
-    (the curve Z1^3 = -Z0^2 on S^3, Sutcliffe 2007); A_{2,2} near -e3 is two Hopf fibres
-    linked once, each carrying 2 (derived: W = Z1^2 / Z0^2 = w has the two components
-    Z1 = +-sqrt(w) Z0).  The charge shares sum to Q (Pontryagin)."""
+def test_position_curve_labels_of_the_maps(part, label, components):
+    """Labels in the literature's classes (Sutcliffe, Proc. R. Soc. A 463 (2007) 3001,
+    arXiv:0705.1468): the axial maps W = Z1^a / Z0^b are axially symmetric, so they are
+    A_{a,b} whatever their position curve is (for A_{2,2} two Hopf fibres near -e3, each
+    carrying 2: W = Z1^2 / Z0^2 = w has the components Z1 = +-sqrt(w) Z0, derived), also
+    when turned away from the grid axes; the (3, 2) torus-knot map's position curve
+    Z1^3 = -Z0^2 is a trefoil (same source); the rational map with the factors
+    (Z1 + Z0)(Z1 - Z0^2) has Q = 2 + 3 = 5 on two unknots with shares 2 and 3, a link (their
+    linking number is not asserted).  The charge shares sum to Q (Pontryagin)."""
     result = solution_label(initial_field(GRID, part), GRID)
-    assert result["label"] == label
+    assert result["label"].startswith(label) if label.endswith("=") else result["label"] == label, \
+        (result["label"], result["symmetry"])
+    assert len(result["components"]) == components
+    assert result["symmetry"]["axial"] == label.startswith("A_")
     shares = [c["share"] for c in result["components"]]
     assert all(abs(s - round(s)) < 0.05 for s in shares)
     assert abs(result["linking_charge"] - sum(shares)) < 1e-9
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("part, points, label", [
+    ({"family": "axial", "a": 2, "b": 2, "size": 1.4, "orientation": (20.0, 35.0, 0.0)}, 71, "A_{2,2}"),
+    ({"family": "torus_knot", "alpha": 1, "beta": 1, "a": 3, "b": 2, "size": 1.6}, 71, "L:unknot[2]+unknot[3]"),
+])
+def test_relaxed_solutions_carry_the_literature_classes(part, points, label):
+    """Relaxed on h = 0.2, sixth order (measured 50-60 s each): A_{2,2}, turned away from
+    the grid axes, stays axially symmetric and is labelled axial (Sutcliffe 2007: the
+    Q = 4 solution A_{2,2}); the Q = 5 trefoil map relaxes to a link of two unknots with
+    shares 2 and 3 (Harland, Speight & Sutcliffe, arXiv:1010.3189, abstract: links at
+    Q = 5 and 6).  Measured deviations from axial symmetry: 0.011 and 0.27."""
+    from solitons.energy import Model
+    from solitons.initial import add_noise
+    from solitons.minimise import StoppingRule, minimise
+    from solitons.terms import BUILTIN_TERMS, Term
+
+    grid = Grid.centred(points, 0.2, "fixed")
+    model = Model((Term("dirichlet", BUILTIN_TERMS["dirichlet"]),
+                   Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"])), grid, "sixth")
+    result = minimise(model, add_noise(initial_field(grid, part), grid, 0.02, 0), "lbfgs",
+                      StoppingRule(max_steps=1500, force_tol=1e-3))
+    assert result.status == "converged"
+    curves = solution_label(result.field, grid, density=model.energy_density(result.field))
+    assert curves["label"].startswith(label), curves["label"]
+    assert curves["symmetry"]["axial"] == label.startswith("A_")

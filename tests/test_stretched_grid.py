@@ -114,13 +114,14 @@ def test_stretched_energy_converges_to_the_uniform_continuum(scheme, order, poin
 
 def test_charge_and_curves_are_coordinate_invariant():
     """Q is a coordinate-invariant integral, evaluated in xi: the Hopf map reads 1 on a
-    strongly stretched grid; its position curves link once and form one unknot
-    (Whitehead 1947; common practice for the label)."""
+    strongly stretched grid; its position curves link once and form one unknot, and its
+    density is axially symmetric, A_{1,1} (Whitehead 1947; Sutcliffe 2007 for the class)."""
     grid = Grid.centred(49, 0.2, "fixed", 2.0)
     field = hopf_map(grid, 1.0)
     assert abs(hopf_charge(field, grid) - 1.0) < 2e-3
     label = solution_label(field, grid)
-    assert label["label"] == "A:unknot[1]", label
+    assert label["label"] == "A_{1,1}", label
+    assert [c["knot"] for c in label["components"]] == ["unknot"]
     assert abs(label["linking_charge"] - 1.0) < 0.05 and label["open_chains"] == 0
 
 

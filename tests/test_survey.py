@@ -44,7 +44,7 @@ def test_survey_q1_to_3_end_to_end(tmp_path, capsys):
         # constant in this normalisation, (3/16)^(3/8) = 0.534, after Kundu & Rybakov 1982
         # - both recalled, docs/references.md [R9])
         assert energy >= 0.534 * q**0.75
-        assert r["label"].startswith("A:unknot")
+        assert r["label"] == f"A_{{{q},1}}"  # axially symmetric, one strand about the axis
     energies = [float(r["energy"]) for r in rows]
     # growth like Q^(3/4), below Q E(1) (Battye & Sutcliffe 1999, Proc. R. Soc. A 455, 4305; recalled)
     assert energies[0] < energies[1] < energies[2] < 3 * energies[0]
