@@ -50,10 +50,13 @@ VAKULENKO_KAPITANSKI = (3.0 / 16.0) ** 0.375
 # Battye-Sutcliffe 1999 and Sutcliffe 2007): Q -> (E, relative tolerance).
 PUBLISHED = {1: (1.22, 0.02), 2: (2.00, 0.03)}
 
-# Built-in families: the axial maps, the torus-knot maps with a trefoil position curve and
-# link maps with two unknotted components (solitons.initial), at sizes that fit the
-# relaxed soliton roughly.  Literature picture (Sutcliffe 2007; Harland, Speight &
-# Sutcliffe 2011): axial up to 4, links at 5 and 6, a trefoil at 7.
+# Built-in families: the axial maps, the torus-knot maps W = Z1^alpha Z0^beta / (Z1^a + Z0^b)
+# and link maps with several torus-curve factors (solitons.initial), at sizes that fit the
+# relaxed soliton roughly (about Q^0.3) and, from Q = 9 on, with the box side ("box") they
+# need: a survey on a smaller uniform box adds sites at its spacing (`family_overrides`).
+# Literature picture (Sutcliffe 2007; Harland, Speight & Sutcliffe 2011): axial up to 4,
+# links at 5 and 6, a trefoil at 7; knots and links compete above (which wins at each
+# charge is what a survey measures).
 DEFAULT_FAMILIES = (
     {"family": "axial", "a": 1, "b": 1, "size": 1.0},
     {"family": "axial", "a": 2, "b": 1, "size": 1.2},
@@ -68,7 +71,57 @@ DEFAULT_FAMILIES = (
     {"family": "torus_knot", "alpha": 1, "beta": 2, "a": 2, "b": 3, "size": 1.8},
     {"family": "axial", "a": 4, "b": 2, "size": 1.8},
     {"family": "rational", "alpha": 1, "beta": 1, "factors": [[1, 3], [1, 3, -1.0]], "size": 1.9},
+    # Q = 9 .. 16: torus knots (3, 2), (5, 2), (4, 3) with their numerators, links, axial.
+    # Measured (tests/test_families.py): knot maps with large numerator powers need
+    # size / h of 20-25 before their initial charge reads right; at the sizes below and
+    # h = 0.2 they start under-resolved.
+    {"family": "torus_knot", "alpha": 3, "beta": 1, "a": 3, "b": 2, "size": 1.9, "box": 18.0},
+    {"family": "torus_knot", "alpha": 2, "beta": 1, "a": 5, "b": 2, "size": 1.9, "box": 18.0},
+    {"family": "rational", "alpha": 1, "beta": 1, "factors": [[1, 3], [2, 3, -1.0]], "size": 1.9, "box": 18.0},
+    {"family": "torus_knot", "alpha": 2, "beta": 2, "a": 3, "b": 2, "size": 2.0, "box": 18.0},
+    {"family": "torus_knot", "alpha": 2, "beta": 1, "a": 4, "b": 3, "size": 2.0, "box": 18.0},
+    {"family": "rational", "alpha": 1, "beta": 1, "factors": [[2, 3], [2, 3, -1.0]], "size": 2.0, "box": 18.0},
+    {"family": "torus_knot", "alpha": 1, "beta": 3, "a": 3, "b": 2, "size": 2.1, "box": 18.0},
+    {"family": "torus_knot", "alpha": 3, "beta": 1, "a": 5, "b": 2, "size": 2.1, "box": 18.0},
+    {"family": "torus_knot", "alpha": 1, "beta": 2, "a": 4, "b": 3, "size": 2.1, "box": 18.0},
+    {"family": "torus_knot", "alpha": 3, "beta": 2, "a": 3, "b": 2, "size": 2.1, "box": 18.0},
+    {"family": "torus_knot", "alpha": 1, "beta": 2, "a": 5, "b": 2, "size": 2.1, "box": 18.0},
+    {"family": "rational", "alpha": 1, "beta": 1, "factors": [[2, 4], [2, 4, -1.0]], "size": 2.1, "box": 18.0},
+    {"family": "torus_knot", "alpha": 5, "beta": 1, "a": 3, "b": 2, "size": 2.2, "box": 20.0},
+    {"family": "torus_knot", "alpha": 4, "beta": 1, "a": 5, "b": 2, "size": 2.2, "box": 20.0},
+    {"family": "torus_knot", "alpha": 3, "beta": 1, "a": 4, "b": 3, "size": 2.2, "box": 20.0},
+    {"family": "torus_knot", "alpha": 4, "beta": 2, "a": 3, "b": 2, "size": 2.2, "box": 20.0},
+    {"family": "torus_knot", "alpha": 2, "beta": 2, "a": 5, "b": 2, "size": 2.2, "box": 20.0},
+    {"family": "torus_knot", "alpha": 2, "beta": 2, "a": 4, "b": 3, "size": 2.2, "box": 20.0},
+    {"family": "rational", "alpha": 1, "beta": 1, "factors": [[3, 4], [3, 4, -1.0]], "size": 2.2, "box": 20.0},
+    {"family": "torus_knot", "alpha": 3, "beta": 3, "a": 3, "b": 2, "size": 2.3, "box": 20.0},
+    {"family": "torus_knot", "alpha": 5, "beta": 1, "a": 5, "b": 2, "size": 2.3, "box": 20.0},
+    {"family": "torus_knot", "alpha": 1, "beta": 3, "a": 4, "b": 3, "size": 2.3, "box": 20.0},
+    {"family": "axial", "a": 5, "b": 3, "size": 2.3, "box": 20.0},
+    {"family": "torus_knot", "alpha": 5, "beta": 2, "a": 3, "b": 2, "size": 2.3, "box": 20.0},
+    {"family": "torus_knot", "alpha": 3, "beta": 2, "a": 5, "b": 2, "size": 2.3, "box": 20.0},
+    {"family": "torus_knot", "alpha": 4, "beta": 1, "a": 4, "b": 3, "size": 2.3, "box": 20.0},
+    {"family": "axial", "a": 4, "b": 4, "size": 2.3, "box": 20.0},
+    {"family": "rational", "alpha": 1, "beta": 1, "factors": [[3, 5], [3, 5, -1.0]], "size": 2.3, "box": 20.0},
 )
+
+
+def family_overrides(family: dict, grid) -> tuple[list[str], list[str]]:
+    """(initial overrides, grid overrides) of a family table: every key but ``box`` goes to
+    [initial]; ``box`` (the side the family needs) enlarges a smaller uniform fixed box at
+    its spacing, to an odd number of sites (a stretched grid reaches far already)."""
+    initial = [f"initial.{k}={toml_inline(v)}" for k, v in family.items() if k != "box"]
+    box = family.get("box")
+    if box is None or any(s > 0 for s in grid.stretch) or grid.boundary != "fixed":
+        return initial, []
+    points = []
+    for n, h in zip(grid.points, grid.spacing):
+        need = int(np.ceil(float(box) / h - 1e-9)) + 1
+        need += 1 - need % 2
+        points.append(max(n, need))
+    if list(points) == list(grid.points):
+        return initial, []
+    return initial, [f"grid.points={toml_inline(points)}"]
 
 
 def axial_families(charges) -> list[dict]:
@@ -103,7 +156,11 @@ def read_survey(path: str | Path, overrides=()) -> tuple[dict, list]:
                           "(without noise every seed relaxes the same field)")
     tasks = []
     for index, family in enumerate(families):
-        overrides_f = [f"initial.{k}={toml_inline(v)}" for k, v in family.items()]
+        box = family.get("box")
+        if box is not None and (isinstance(box, bool) or not isinstance(box, (int, float)) or not box > 0):
+            raise ConfigError(source, f"survey.families[{index}].box", box, "must be a box side > 0")
+        initial_f, grid_f = family_overrides(family, base.grid)
+        overrides_f = initial_f + grid_f
         try:
             probe = load(path, list(overrides) + overrides_f, ignore_tables=("survey",))
         except ConfigError as error:

@@ -76,3 +76,25 @@ def test_noise_is_seeded_and_keeps_unit_length():
     assert not np.array_equal(first, add_noise(field, grid, 0.05, seed=4))
     assert np.allclose(np.linalg.norm(first, axis=-1), 1.0)
     assert np.array_equal(first[0], field[0])  # the fixed border keeps the vacuum
+
+
+def test_builtin_survey_families_reach_charge_16():
+    """The built-in survey list has families for every Q = 1..16, each with the charge its
+    formula gives (Sutcliffe 2007, as above); the link and axial maps added for Q = 9..16
+    read their charge in the Whitehead integral to 1 % at size 1.5 on this grid.  The
+    torus-knot maps with large numerator powers do not at this resolution (measured at
+    size 1.5 here: (5,2;3,2) 6.03 for 16, (3,3;3,2) 7.31 for 15; at size 2.5 on 192^3,
+    h = 0.1: 14.3 and 14.2; (3,1;3,2) 8.63, 8.94, 9.00 for 9 at size / h = 12, 16, 20),
+    so they are not asserted here: a survey has to give them that resolution."""
+    from solitons.charge_survey import DEFAULT_FAMILIES
+
+    charges = {expected_charge(f) for f in DEFAULT_FAMILIES}
+    assert charges == set(range(1, 17))
+    for family in DEFAULT_FAMILIES:
+        if expected_charge(family) < 9 or family["family"] == "torus_knot":
+            continue
+        part = {k: v for k, v in family.items() if k != "box"}
+        part.update(size=1.5, orientation=(20.0, 35.0, -10.0))
+        charge = expected_charge(part)
+        measured = hopf_charge(initial_field(GRID, part), GRID)
+        assert abs(measured - charge) < 0.01 * charge, (family, measured)

@@ -84,3 +84,22 @@ def test_survey_input_errors(tmp_path):
     config.write_text(SURVEY + "colour = 1\n")
     with pytest.raises(ConfigError, match="survey.colour"):
         read_survey(config)
+
+
+def test_family_box_enlarges_a_smaller_box(tmp_path):
+    """A family's ``box`` adds sites at the survey's spacing until the box side reaches it
+    (odd counts, centred); a larger box is kept as it is."""
+    path = tmp_path / "survey.toml"
+    path.write_text('[grid]\npoints = 41\nspacing = 0.25\n[survey]\ncharges = [9, 1]\nfamilies = [\n'
+                    '  { family = "torus_knot", alpha = 3, beta = 1, a = 3, b = 2, size = 1.9, box = 18.0 },\n'
+                    '  { family = "axial", a = 1, b = 1, size = 1.0 },\n]\n')
+    _, tasks = read_survey(path)
+    points = {q: spec.grid.points for q, _, _, spec in tasks}
+    assert points[9] == (73, 73, 73)  # 18 / 0.25 + 1 = 73 sites, side 18
+    assert points[1] == (41, 41, 41)
+    path.write_text(path.read_text().replace("points = 41", "points = 81"))
+    _, tasks = read_survey(path)
+    assert {q: spec.grid.points for q, _, _, spec in tasks}[9] == (81, 81, 81)
+    path.write_text(path.read_text().replace("box = 18.0", "box = -1.0"))
+    with pytest.raises(ConfigError, match=r"survey.families\[0\].box"):
+        read_survey(path)
