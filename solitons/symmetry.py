@@ -44,6 +44,14 @@ def principal_frame(density: np.ndarray, grid) -> tuple[np.ndarray, np.ndarray, 
     return centre, vectors[:, k], values
 
 
+def _frame(axis):
+    """The unit axis and two unit vectors that complete it to a right-handed frame."""
+    axis = np.asarray(axis, dtype=float) / np.linalg.norm(axis)
+    e1 = np.cross(axis, np.eye(3)[int(np.argmin(np.abs(axis)))])
+    e1 /= np.linalg.norm(e1)
+    return axis, e1, np.cross(axis, e1)
+
+
 def _to_index(points, grid):
     """Fractional site indices (3, M) of physical points (M, 3) (monotone axes)."""
     return np.stack([np.interp(points[:, a], axis, np.arange(len(axis)), left=-1.0, right=len(axis))
@@ -59,11 +67,7 @@ def axial_deviation(density: np.ndarray, grid, centre=None, axis=None) -> dict:
     density = np.asarray(density, dtype=np.float64)
     if centre is None or axis is None:
         centre, axis, _ = principal_frame(density, grid)
-    axis = np.asarray(axis, dtype=float) / np.linalg.norm(axis)
-    helper = np.eye(3)[int(np.argmin(np.abs(axis)))]
-    e1 = np.cross(axis, helper)
-    e1 /= np.linalg.norm(e1)
-    e2 = np.cross(axis, e1)
+    axis, e1, e2 = _frame(axis)
     step = 0.5 * min(float(np.min(np.diff(x))) for x in grid.axes())
     reach = 0.5 * min(grid.side)
     radii = np.arange(0.5 * step, reach, step)
@@ -86,11 +90,7 @@ def axial_deviation(density: np.ndarray, grid, centre=None, axis=None) -> dict:
 def winding_about(curve: np.ndarray, centre, axis) -> float:
     """Number of times a closed polyline (M, 3) winds about the line through ``centre``
     along ``axis`` (signed; the total change of its azimuth over 2 pi)."""
-    axis = np.asarray(axis, dtype=float) / np.linalg.norm(axis)
-    helper = np.eye(3)[int(np.argmin(np.abs(axis)))]
-    e1 = np.cross(axis, helper)
-    e1 /= np.linalg.norm(e1)
-    e2 = np.cross(axis, e1)
+    axis, e1, e2 = _frame(axis)
     offsets = np.asarray(curve) - np.asarray(centre)[None, :]
     phi = np.arctan2(offsets @ e2, offsets @ e1)
     steps = np.diff(np.append(phi, phi[0]))
