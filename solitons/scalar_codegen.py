@@ -308,12 +308,7 @@ class Translator:
         return self._split_outputs(eqn, flat_exprs)
 
     def reduce_extremum(self, eqn, operand, which):
-        axes = tuple(eqn.params["axes"])
-        exprs = operand.exprs
-        keep = [a for a in range(exprs.ndim) if a not in axes]
-        moved = np.transpose(exprs, keep + list(axes))
-        out_shape = moved.shape[:len(keep)]
-        moved = moved.reshape(out_shape + (-1,))
+        moved, out_shape = _reduction_groups(operand.exprs, eqn.params["axes"])
         out = np.empty(out_shape, dtype=object)
         for index in np.ndindex(out_shape):
             expr = moved[index][0]
@@ -395,13 +390,17 @@ def _pad(tr, eqn, ins):
     return _rearranged(out)
 
 
-def _reduce_sum(tr, eqn, ins):
-    axes = tuple(int(a) for a in eqn.params["axes"])
-    exprs = ins[0].exprs
+def _reduction_groups(exprs, axes):
+    """exprs with the reduced ``axes`` moved last and merged: (array (kept..., M), kept shape)."""
+    axes = [int(a) for a in axes]
     keep = [a for a in range(exprs.ndim) if a not in axes]
-    moved = np.transpose(exprs, keep + list(axes))
+    moved = np.transpose(exprs, keep + axes)
     out_shape = moved.shape[:len(keep)]
-    moved = moved.reshape(out_shape + (-1,))
+    return moved.reshape(out_shape + (-1,)), out_shape
+
+
+def _reduce_sum(tr, eqn, ins):
+    moved, out_shape = _reduction_groups(ins[0].exprs, eqn.params["axes"])
     out = np.empty(out_shape, dtype=object)
     for index in np.ndindex(out_shape):
         terms = [e for e in moved[index] if e != "(0.0)"]

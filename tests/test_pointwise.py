@@ -27,7 +27,7 @@ COPIES = Path(__file__).with_name("user_copies.py")  # user-file copies of log_q
 
 def many_primitives(n, d, lap=None, a=0.7, b=1.3):
     """A made-up density that reaches most of the translator's rules: elementwise maths,
-    comparisons and selects, reductions, contractions with and without constants,
+    comparisons and selects, reductions (sum, mean, max), contractions with and without constants,
     slicing, reversal, stacking, padding, integer and real powers."""
     D = strain(d)
     F = field_strength(n, d)
@@ -46,7 +46,7 @@ def many_primitives(n, d, lap=None, a=0.7, b=1.3):
     ratio = h2 / (1.0 + trace) + jnp.log1p(h2) - jnp.expm1(-trace) * 0.0
     quadratic = jnp.einsum("...ij,...ij->...", F, F) + jnp.linalg.norm(cross, axis=-1) ** 3
     return (a * smooth + gate + clipped + b * bounded * reversed_part + ratio + quadratic
-            + jnp.mean(D, axis=(-2, -1)) * (1.0 - n[..., 2]) ** 2 + (trace + 1.0) ** -2 - 1.0 + 0.0 * jnp.sum(lap, -1))
+            + jnp.mean(D, axis=(-2, -1)) * (1.0 - n[..., 2]) ** 2 + 0.1 * jnp.max(D, axis=(-2, -1)) + (trace + 1.0) ** -2 - 1.0 + 0.0 * jnp.sum(lap, -1))
 
 
 def random_sites(count, seed=0):
