@@ -62,7 +62,7 @@ _BINARY = {
 _AFFINE = {
     "slice", "reshape", "broadcast_in_dim", "transpose", "concatenate", "squeeze", "expand_dims", "pad",
     "gather", "scatter-add", "scatter_add", "dynamic_slice", "dynamic_update_slice", "rev", "reduce_sum",
-    "cumsum", "stack", "unstack", "split", "select_and_gather_add", "real", "copy_p",
+    "cumsum", "stack", "unstack", "split",
 }
 _CALLS = {"pjit": "jaxpr", "jit": "jaxpr", "closed_call": "call_jaxpr", "core_call": "call_jaxpr", "custom_jvp_call": "call_jaxpr",
           "custom_vjp_call": "call_jaxpr", "custom_vjp_call_jaxpr": "fun_jaxpr", "checkpoint": "jaxpr",
@@ -110,7 +110,6 @@ class Translator:
         self.lines: list[str] = []
         self.prefix = prefix
         self.count = 0
-        self._jacobians = {}
 
     def emit(self, expr: str) -> str:
         name = f"{self.prefix}{self.count}"
