@@ -35,7 +35,7 @@ from solitons.axial import (
     to_3d,
 )
 from solitons.config import RunSpec
-from solitons.diagnose import assess
+from solitons.diagnose import assess, stopping_record
 from solitons.io import check_output_dir, prepare_output_dir, stale_temporaries, write_json, write_result, write_xdmf
 from solitons.minimise import StoppingRule, minimise
 from solitons.outcomes import Outcome
@@ -154,6 +154,9 @@ def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwr
     if abs(initial_charge - expected) > 0.02 * expected:
         verdict["warnings"].append(f"the initial data measures Q = {initial_charge:.4f} against the family's "
                                    f"{expected}: the half plane is too coarse or too small for this size")
+    stopped_by, stop_warnings = stopping_record(result.converged, result.max_force, relax_spec.force_tol,
+                                                relax_spec.energy_tol, relax_spec.patience)
+    verdict["warnings"] += stop_warnings
     curves = solution_label(field3, grid3, density=density3)
     summary = {
         "energy": float(sum(energies.values())),
@@ -168,6 +171,7 @@ def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwr
         "virial_per_axis": virial["per_axis"],
         "converged": result.converged,
         "status": str(result.status),
+        "stopped_by": stopped_by,
         "iterations": result.steps,
         "evaluations": result.evaluations,
         "segments": [],

@@ -81,6 +81,7 @@ OUTSIDE_TARGET = 1e-4
 # h = 0.15 (81^3), a cubic lattice preferring some orientations, shrinking with h
 # (measured).  The axial Q = 3 saddle gave 6.8e-3 to 9.3e-3 (measured; [R17]).  Drops
 # above LATTICE_DROP but below SADDLE_DROP are reported with a warning, not a verdict.
+ENERGY_STOP_FORCE = 10.0  # a run the energy rule stopped with max force above this x force_tol is flagged
 SADDLE_DROP = 1e-3
 LATTICE_DROP = 1e-5
 
@@ -350,3 +351,24 @@ def assess(field, grid: Grid, energy_density, hopf_charge: float, expected_charg
     if h / now["thickness"] > SPACING_LIMIT and verdict != UNDER_RESOLVED:
         warnings.append(f"spacing is {h / now['thickness']:.2f} of the core thickness: under-resolved")
     return {"verdict": verdict, "evidence": evidence, "warnings": warnings}
+
+
+def stopping_record(converged: bool, max_force: float, force_tol: float, energy_tol: float,
+                    patience: int) -> tuple[str | None, list[str]]:
+    """Which rule stopped a converged run ("force": max force below force_tol; "energy":
+    the relative energy change stayed below energy_tol for ``patience`` steps) and the
+    warning when the energy rule stopped it with the force still above ENERGY_STOP_FORCE
+    times force_tol: the energy has settled, the field's largest force has not (measured:
+    the Q = 9..16 runs of analysis/survey_q1_16 at h = 0.2 stopped so with max force
+    0.04-0.19 against force_tol 1e-3)."""
+    if not converged:
+        return None, []
+    if max_force < force_tol:
+        return "force", []
+    warnings = []
+    if max_force > ENERGY_STOP_FORCE * force_tol:
+        warnings.append(f"stopped by the energy rule (relative change below {energy_tol:g} for {patience} steps) "
+                        f"with max force {max_force:.2e} = {max_force / force_tol:.0f} x force_tol: the energy "
+                        "has settled, the largest force has not; for the field itself (or a verdict at a "
+                        "tighter tolerance) rerun with a smaller energy_tol or a larger patience")
+    return "energy", warnings

@@ -19,7 +19,7 @@ import numpy as np
 
 from solitons import __version__, interrupts
 from solitons.config import USER_KIND, RunSpec
-from solitons.diagnose import assess, snapshot
+from solitons.diagnose import assess, snapshot, stopping_record
 from solitons.energy import Model, kernel_couplings
 from solitons.grid import Grid
 from solitons.initial import add_noise, initial_field, interpolate_field
@@ -575,6 +575,9 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         if coarse is not None and not coarse["used"]:
             verdict["warnings"].append(f"the coarse start was discarded ({coarse['reason']}); "
                                        "the run started from the initial data on the fine grid")
+        stopped_by, stop_warnings = stopping_record(result.converged, result.max_force, rule.force_tol,
+                                                    rule.energy_tol, rule.patience)
+        verdict["warnings"] += stop_warnings
         curves = solution_label(field, grid, density=density)
         if curves["open_chains"]:
             verdict["warnings"].append(f"{curves['open_chains']} preimage curves are cut by the box: "
@@ -597,6 +600,7 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
             "virial_per_axis": virial["per_axis"],
             "converged": result.converged,
             "status": str(result.status),
+            "stopped_by": stopped_by,
             "iterations": result.steps,
             "evaluations": sum(seg["evaluations"] for seg in segments),
             "segments": segments,
@@ -664,7 +668,8 @@ def report(summary: dict, out_dir: str | Path, stream: TextIO | None = None) -> 
         f"{summary['family']}; initial data {summary['initial_charge']:.4f}; linking of two preimages "
         f"{summary['curves']['linking_charge']:.3f})",
         f"label         {summary['label']}",
-        f"converged     {'yes' if summary['converged'] else 'NO'} ({summary['status']}, "
+        f"converged     {'yes' if summary['converged'] else 'NO'} ({summary['status']}"
+        f"{' by the ' + summary['stopped_by'] + ' rule' if summary.get('stopped_by') else ''}, "
         f"{summary['iterations']} steps, {summary['evaluations']} evaluations, "
         f"max force {summary['max_force']:.2e}, {summary['wall_seconds']:.1f} s)",
         f"grid          {g['shape'][0]}x{g['shape'][1]}x{g['shape'][2]}, h = {g['spacing'][0]:g}, "

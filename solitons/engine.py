@@ -49,7 +49,7 @@ def make_task(root: str | Path, name: str, text: str, base_dir: str | Path, cont
     """A task: relax ``text`` into root/name, or, with ``continuum`` (spacings), run the
     continuum command on it there (`solitons.continuum.run_continuum` with publish)."""
     return {"root": str(root), "task": name, "text": text, "base_dir": str(base_dir), "labels": labels,
-            "continuum": continuum}
+            "continuum": continuum, "priority": 0}
 
 
 def execute(task: dict) -> dict:
@@ -158,7 +158,12 @@ def run_tasks(tasks: list[dict], scheduler: str | None = None, workers: int | No
     else:
         client = Client(scheduler)
     try:
-        futures = {client.submit(function, task, pure=False): index for index, task in enumerate(tasks)}
+        # dask starts higher priorities first: a caller may rank tasks by cost (largest first
+        # keeps the last worker from starting the longest task alone at the end)
+        # (submitted in that order too: the first tasks submitted start at once, whatever their rank)
+        order = sorted(range(len(tasks)), key=lambda i: -int(tasks[i].get("priority", 0)))
+        futures = {client.submit(function, tasks[i], pure=False, priority=int(tasks[i].get("priority", 0))): i
+                   for i in order}
         for future in as_completed(futures):
             index = futures[future]
             try:

@@ -34,7 +34,7 @@ literal eight-octant average of `solitons.energy`):
 - (dn . dn)^2:        sum_a (F_a^2 + B_a^2) / 2 + 2 sum_{a<b} m_a m_b
 - sum_ij (d_i.d_j)^2: sum_a (F_a^2 + B_a^2) / 2 + (1/2) sum_{a<b} <M_a, M_b>
 - n . curl n:         linear in d, so n . curl((f + b) / 2)
-- sextic, log_quartic: the eight octants explicitly (``_octant_row``).
+- sextic, log_quartic: the eight octants through the twelve axis pairs (``_pair_row``).
 """
 
 from __future__ import annotations
@@ -442,73 +442,65 @@ def _chiral_row(loc, plane, cj, r, dens, wrow, c):
     return e, qx, qy, qz
 
 
-@nb.njit(inline="always", fastmath=_FAST, error_model="numpy")
-def _h2_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2):
-    """H^2 = sum_{a<b} |d_a x d_b|^2, the Dirichlet sum D and dH^2/d(d_a) of one octant."""
-    a = x0 * x0 + x1 * x1 + x2 * x2
-    b = y0 * y0 + y1 * y1 + y2 * y2
-    c = z0 * z0 + z1 * z1 + z2 * z2
-    pxy = x0 * y0 + x1 * y1 + x2 * y2
-    pxz = x0 * z0 + x1 * z1 + x2 * z2
-    pyz = y0 * z0 + y1 * z1 + y2 * z2
-    h2 = a * b - pxy * pxy + a * c - pxz * pxz + b * c - pyz * pyz
-    sx, sy, sz = b + c, a + c, a + b
-    gx0 = sx * x0 - pxy * y0 - pxz * z0
-    gx1 = sx * x1 - pxy * y1 - pxz * z1
-    gx2 = sx * x2 - pxy * y2 - pxz * z2
-    gy0 = sy * y0 - pxy * x0 - pyz * z0
-    gy1 = sy * y1 - pxy * x1 - pyz * z1
-    gy2 = sy * y2 - pxy * x2 - pyz * z2
-    gz0 = sz * z0 - pxz * x0 - pyz * y0
-    gz1 = sz * z1 - pxz * x1 - pyz * y1
-    gz2 = sz * z2 - pxz * x2 - pyz * y2
-    # (the factor 2 of dH^2/dd is applied by the callers)
-    return h2, a + b + c, gx0, gx1, gx2, gy0, gy1, gy2, gz0, gz1, gz2
+# Octant terms through the twelve axis pairs.  The octant o = (s_x, s_y, s_z) takes one
+# difference per axis, and H^2_o = sum_{a<b} |d_a x d_b|^2 = C_xy[s_x s_y] + C_xz[s_x s_z]
+# + C_yz[s_y s_z] with C[st] = |d_s|^2 |d_t|^2 - (d_s . d_t)^2: twelve pair values give all
+# eight H^2_o.  A term phi(H^2_o) (+ H^2_o D_o for the sextic, D_o = sum_a |d_a|^2) has
+# d/d d_s = sum over the pairs (s, t) of W_st dC_st/dd_s, dC_st/dd_s = 2 (|d_t|^2 d_s -
+# (d_s . d_t) d_t), W_st = the sum of phi'_o over the two octants that hold the pair
+# (derived; the tests compare with jax autodiff of the literal eight-octant average).
+# Letters: a, b = f_x, b_x; p, q = f_y, b_y; u, v = f_z, b_z; octants in the order
+# (a p u), (a p v), (a q u), (a q v), (b p u), (b p v), (b q u), (b q v).
 
 
 @nb.njit(inline="always", fastmath=_FAST, error_model="numpy")
-def _sextic_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2, constants, logarithm):
-    """H^2 D and its derivatives: D dH^2/dd_a + 2 H^2 d_a."""
-    h2, dsum, gx0, gx1, gx2, gy0, gy1, gy2, gz0, gz1, gz2 = _h2_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2)
-    two = constants[4]
-    s, t = two * dsum, two * h2
-    return (h2 * dsum, s * gx0 + t * x0, s * gx1 + t * x1, s * gx2 + t * x2, s * gy0 + t * y0, s * gy1 + t * y1,
-            s * gy2 + t * y2, s * gz0 + t * z0, s * gz1 + t * z1, s * gz2 + t * z2)
+def _pair_grad(weight_sum, d0, d1, d2, w1, dot1, e1, w2, dot2, e2, w3, dot3, e3, w4, dot4, e4):
+    """sum_t W_st (|d_t|^2 d_s - (d_s . d_t) d_t) over the four partners t of d_s, with
+    weight_sum = sum_t W_st |d_t|^2 (+ the sextic's H^2 sum); e_t = (t0, t1, t2)."""
+    c1, c2, c3, c4 = w1 * dot1, w2 * dot2, w3 * dot3, w4 * dot4
+    return (weight_sum * d0 - c1 * e1[0] - c2 * e2[0] - c3 * e3[0] - c4 * e4[0],
+            weight_sum * d1 - c1 * e1[1] - c2 * e2[1] - c3 * e3[1] - c4 * e4[1],
+            weight_sum * d2 - c1 * e1[2] - c2 * e2[2] - c3 * e3[2] - c4 * e4[2])
 
 
 @nb.njit(inline="always", fastmath=_FAST, error_model="numpy")
-def _log_quartic_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2, constants, logarithm):
-    """H^2 (c0 + c1 ln((H^2 + delta m4) / m4)) and its derivatives phi' dH^2/dd_a with
-    phi' = c0 + c1 ln(...) + c1 H^2 / (H^2 + delta m4); ``logarithm`` is the ln(...) of this
-    octant, computed beforehand for the whole row (`_row_logarithms`)."""
-    c0, c1, m4, dm4, two = constants
-    h2, dsum, gx0, gx1, gx2, gy0, gy1, gy2, gz0, gz1, gz2 = _h2_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2)
-    shifted = h2 + dm4
-    bracket = c0 + c1 * logarithm
-    s = two * (bracket + c1 * h2 / shifted)
-    return (h2 * bracket, s * gx0, s * gx1, s * gx2, s * gy0, s * gy1, s * gy2, s * gz0, s * gz1, s * gz2)
-
-
-@nb.njit(inline="always", fastmath=_FAST, error_model="numpy")
-def _octant(x0, x1, x2, y0, y1, y2, z0, z1, z2, mode, constants, logarithm):
-    """The density of term ``mode`` on one octant (0 sextic, 1 log_quartic) and its
-    derivatives with respect to the three differences.  ``mode`` is a constant in each
-    row function below, so after inlining the branch folds away (a function passed as an
-    argument instead would keep numba from caching the compiled kernel)."""
-    if mode == 0:
-        return _sextic_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2, constants, logarithm)
-    return _log_quartic_octant(x0, x1, x2, y0, y1, y2, z0, z1, z2, constants, logarithm)
+def _pair_h2(a, b, p, q, u, v):
+    """Norms, the twelve pair dots and the eight H^2_o of one site (letters as above)."""
+    na = a[0] * a[0] + a[1] * a[1] + a[2] * a[2]
+    nb_ = b[0] * b[0] + b[1] * b[1] + b[2] * b[2]
+    np_ = p[0] * p[0] + p[1] * p[1] + p[2] * p[2]
+    nq = q[0] * q[0] + q[1] * q[1] + q[2] * q[2]
+    nu = u[0] * u[0] + u[1] * u[1] + u[2] * u[2]
+    nv = v[0] * v[0] + v[1] * v[1] + v[2] * v[2]
+    ap = a[0] * p[0] + a[1] * p[1] + a[2] * p[2]
+    aq = a[0] * q[0] + a[1] * q[1] + a[2] * q[2]
+    bp = b[0] * p[0] + b[1] * p[1] + b[2] * p[2]
+    bq = b[0] * q[0] + b[1] * q[1] + b[2] * q[2]
+    au = a[0] * u[0] + a[1] * u[1] + a[2] * u[2]
+    av = a[0] * v[0] + a[1] * v[1] + a[2] * v[2]
+    bu = b[0] * u[0] + b[1] * u[1] + b[2] * u[2]
+    bv = b[0] * v[0] + b[1] * v[1] + b[2] * v[2]
+    pu = p[0] * u[0] + p[1] * u[1] + p[2] * u[2]
+    pv = p[0] * v[0] + p[1] * v[1] + p[2] * v[2]
+    qu = q[0] * u[0] + q[1] * u[1] + q[2] * u[2]
+    qv = q[0] * v[0] + q[1] * v[1] + q[2] * v[2]
+    cap, caq, cbp, cbq = na * np_ - ap * ap, na * nq - aq * aq, nb_ * np_ - bp * bp, nb_ * nq - bq * bq
+    cau, cav, cbu, cbv = na * nu - au * au, na * nv - av * av, nb_ * nu - bu * bu, nb_ * nv - bv * bv
+    cpu, cpv, cqu, cqv = np_ * nu - pu * pu, np_ * nv - pv * pv, nq * nu - qu * qu, nq * nv - qv * qv
+    hs = (cap + cau + cpu, cap + cav + cpv, caq + cau + cqu, caq + cav + cqv,
+          cbp + cbu + cpu, cbp + cbv + cpv, cbq + cbu + cqu, cbq + cbv + cqv)
+    return (na, nb_, np_, nq, nu, nv), (ap, aq, bp, bq, au, av, bu, bv, pu, pv, qu, qv), hs
 
 
 @nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
 def _sextic_row(loc, plane, cj, r, dens, wrow, c, constants, logs):
-    return _octant_row(loc, plane, cj, r, dens, wrow, c, 0, constants, logs)
+    return _pair_row(loc, plane, cj, r, dens, wrow, c, 0, constants, logs)
 
 
 @nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
 def _log_quartic_row(loc, plane, cj, r, dens, wrow, c, constants, logs):
     _row_logarithms(loc, constants, logs)
-    return _octant_row(loc, plane, cj, r, dens, wrow, c, 1, constants, logs)
+    return _pair_row(loc, plane, cj, r, dens, wrow, c, 1, constants, logs)
 
 
 _LN2_HI, _LN2_LO = 6.93147180369123816490e-01, 1.90821492927058770002e-10  # fdlibm's split of ln 2
@@ -553,36 +545,38 @@ def vector_log(values, work, exponents):
 
 @nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
 def _row_logarithms(loc, constants, logs):
-    """logs[o, k] = ln((H^2 + delta m4) / m4) of octant o (the order of `_octant_row`);
+    """logs[o, k] = ln((H^2 + delta m4) / m4) of octant o (the order of `_pair_row`);
     logs (10, Nz) float64, rows 8 and 9 work space."""
     c0, c1, m4, dm4, two = constants
     nz = logs.shape[1]
     fx0, fx1, fx2, bx0, bx1, bx2 = loc[0], loc[1], loc[2], loc[3], loc[4], loc[5]
     fy0, fy1, fy2, by0, by1, by2 = loc[6], loc[7], loc[8], loc[9], loc[10], loc[11]
     fz0, fz1, fz2, bz0, bz1, bz2 = loc[12], loc[13], loc[14], loc[15], loc[16], loc[17]
-    l1, l2, l3, l4, l5, l6, l7, l8 = logs[0], logs[1], logs[2], logs[3], logs[4], logs[5], logs[6], logs[7]
     inverse = 1.0 / np.float64(m4)
     for k in range(nz):
-        a0, a1, a2, b0, b1, b2 = fx0[k], fx1[k], fx2[k], bx0[k], bx1[k], bx2[k]
-        p0, p1, p2, q0, q1, q2 = fy0[k], fy1[k], fy2[k], by0[k], by1[k], by2[k]
-        u0, u1, u2, v0, v1, v2 = fz0[k], fz1[k], fz2[k], bz0[k], bz1[k], bz2[k]
-        l1[k] = (_h2_octant(a0, a1, a2, p0, p1, p2, u0, u1, u2)[0] + dm4) * inverse
-        l2[k] = (_h2_octant(a0, a1, a2, p0, p1, p2, v0, v1, v2)[0] + dm4) * inverse
-        l3[k] = (_h2_octant(a0, a1, a2, q0, q1, q2, u0, u1, u2)[0] + dm4) * inverse
-        l4[k] = (_h2_octant(a0, a1, a2, q0, q1, q2, v0, v1, v2)[0] + dm4) * inverse
-        l5[k] = (_h2_octant(b0, b1, b2, p0, p1, p2, u0, u1, u2)[0] + dm4) * inverse
-        l6[k] = (_h2_octant(b0, b1, b2, p0, p1, p2, v0, v1, v2)[0] + dm4) * inverse
-        l7[k] = (_h2_octant(b0, b1, b2, q0, q1, q2, u0, u1, u2)[0] + dm4) * inverse
-        l8[k] = (_h2_octant(b0, b1, b2, q0, q1, q2, v0, v1, v2)[0] + dm4) * inverse
+        hs = _pair_h2((fx0[k], fx1[k], fx2[k]), (bx0[k], bx1[k], bx2[k]), (fy0[k], fy1[k], fy2[k]),
+                      (by0[k], by1[k], by2[k]), (fz0[k], fz1[k], fz2[k]), (bz0[k], bz1[k], bz2[k]))[2]
+        logs[0, k] = (hs[0] + dm4) * inverse
+        logs[1, k] = (hs[1] + dm4) * inverse
+        logs[2, k] = (hs[2] + dm4) * inverse
+        logs[3, k] = (hs[3] + dm4) * inverse
+        logs[4, k] = (hs[4] + dm4) * inverse
+        logs[5, k] = (hs[5] + dm4) * inverse
+        logs[6, k] = (hs[6] + dm4) * inverse
+        logs[7, k] = (hs[7] + dm4) * inverse
     work = logs[8].view(np.int64)
     for o in range(8):
         vector_log(logs[o], work, logs[9])
 
 
 @nb.njit(inline="always", fastmath=_FAST, error_model="numpy")
-def _octant_row(loc, plane, cj, r, dens, wrow, c, mode, constants, logs):
-    """A term evaluated on each of the eight octants (`_octant`), averaged."""
+def _pair_row(loc, plane, cj, r, dens, wrow, c, mode, constants, logs):
+    """Term ``mode`` (0 sextic H^2 D, 1 log_quartic H^2 (c0 + c1 ln((H^2 + delta m4) / m4)),
+    its logarithms in ``logs`` from `_row_logarithms`) averaged over the eight octants,
+    through the twelve axis pairs (see above).  ``mode`` is a constant in each caller, so
+    after inlining the branches fold away."""
     real = loc.dtype.type
+    c0, c1, m4, dm4, two = constants
     eighth = real(0.125) * real(c)
     fx0, fx1, fx2, bx0, bx1, bx2 = loc[0], loc[1], loc[2], loc[3], loc[4], loc[5]
     fy0, fy1, fy2, by0, by1, by2 = loc[6], loc[7], loc[8], loc[9], loc[10], loc[11]
@@ -593,44 +587,56 @@ def _octant_row(loc, plane, cj, r, dens, wrow, c, mode, constants, logs):
                                 plane[10, cj, r:], plane[11, cj, r:])
     g12, g13, g14, g15, g16, g17 = (plane[12, cj, r:], plane[13, cj, r:], plane[14, cj, r:], plane[15, cj, r:],
                                     plane[16, cj, r:], plane[17, cj, r:])
-    lg1, lg2, lg3, lg4, lg5, lg6, lg7, lg8 = logs[0], logs[1], logs[2], logs[3], logs[4], logs[5], logs[6], logs[7]
     e = qx = qy = qz = real(0.0)
+    zero = real(0.0)
     for k in range(wrow.shape[0]):
-        a0, a1, a2, b0, b1, b2 = fx0[k], fx1[k], fx2[k], bx0[k], bx1[k], bx2[k]
-        p0, p1, p2, q0, q1, q2 = fy0[k], fy1[k], fy2[k], by0[k], by1[k], by2[k]
-        u0, u1, u2, v0, v1, v2 = fz0[k], fz1[k], fz2[k], bz0[k], bz1[k], bz2[k]
-        # x: f = a, b = b; y: f = p, b = q; z: f = u, b = v
-        o1 = _octant(a0, a1, a2, p0, p1, p2, u0, u1, u2, mode, constants, lg1[k])
-        o2 = _octant(a0, a1, a2, p0, p1, p2, v0, v1, v2, mode, constants, lg2[k])
-        o3 = _octant(a0, a1, a2, q0, q1, q2, u0, u1, u2, mode, constants, lg3[k])
-        o4 = _octant(a0, a1, a2, q0, q1, q2, v0, v1, v2, mode, constants, lg4[k])
-        o5 = _octant(b0, b1, b2, p0, p1, p2, u0, u1, u2, mode, constants, lg5[k])
-        o6 = _octant(b0, b1, b2, p0, p1, p2, v0, v1, v2, mode, constants, lg6[k])
-        o7 = _octant(b0, b1, b2, q0, q1, q2, u0, u1, u2, mode, constants, lg7[k])
-        o8 = _octant(b0, b1, b2, q0, q1, q2, v0, v1, v2, mode, constants, lg8[k])
-        rho = eighth * (o1[0] + o2[0] + o3[0] + o4[0] + o5[0] + o6[0] + o7[0] + o8[0])
+        a, b = (fx0[k], fx1[k], fx2[k]), (bx0[k], bx1[k], bx2[k])
+        p, q = (fy0[k], fy1[k], fy2[k]), (by0[k], by1[k], by2[k])
+        u, v = (fz0[k], fz1[k], fz2[k]), (bz0[k], bz1[k], bz2[k])
+        (na, nb_, np_, nq, nu, nv), (ap, aq, bp, bq, au, av, bu, bv, pu, pv, qu, qv), hs = _pair_h2(a, b, p, q, u, v)
+        h1, h2, h3, h4, h5, h6, h7, h8 = hs
+        if mode == 0:  # rho_o = H^2_o D_o: phi'_o = D_o, and D_o's own derivative 2 H^2_o d
+            f1, f2, f3, f4 = na + np_ + nu, na + np_ + nv, na + nq + nu, na + nq + nv
+            f5, f6, f7, f8 = nb_ + np_ + nu, nb_ + np_ + nv, nb_ + nq + nu, nb_ + nq + nv
+            rho = h1 * f1 + h2 * f2 + h3 * f3 + h4 * f4 + h5 * f5 + h6 * f6 + h7 * f7 + h8 * f8
+            sa, sb, sp = h1 + h2 + h3 + h4, h5 + h6 + h7 + h8, h1 + h2 + h5 + h6
+            sq, su, sv = h3 + h4 + h7 + h8, h1 + h3 + h5 + h7, h2 + h4 + h6 + h8
+        else:  # rho_o = H^2_o bracket_o, phi'_o = bracket_o + c1 H^2_o / (H^2_o + delta m4)
+            k1, k2, k3, k4 = c0 + c1 * logs[0, k], c0 + c1 * logs[1, k], c0 + c1 * logs[2, k], c0 + c1 * logs[3, k]
+            k5, k6, k7, k8 = c0 + c1 * logs[4, k], c0 + c1 * logs[5, k], c0 + c1 * logs[6, k], c0 + c1 * logs[7, k]
+            rho = h1 * k1 + h2 * k2 + h3 * k3 + h4 * k4 + h5 * k5 + h6 * k6 + h7 * k7 + h8 * k8
+            f1, f2 = k1 + c1 * h1 / (h1 + dm4), k2 + c1 * h2 / (h2 + dm4)
+            f3, f4 = k3 + c1 * h3 / (h3 + dm4), k4 + c1 * h4 / (h4 + dm4)
+            f5, f6 = k5 + c1 * h5 / (h5 + dm4), k6 + c1 * h6 / (h6 + dm4)
+            f7, f8 = k7 + c1 * h7 / (h7 + dm4), k8 + c1 * h8 / (h8 + dm4)
+            sa = sb = sp = sq = su = sv = zero
+        rho = eighth * rho
         dens[k] += rho
         w = wrow[k]
         e += w * rho
-        s = eighth * w
-        dfx0 = s * (o1[1] + o2[1] + o3[1] + o4[1])
-        dfx1 = s * (o1[2] + o2[2] + o3[2] + o4[2])
-        dfx2 = s * (o1[3] + o2[3] + o3[3] + o4[3])
-        dbx0 = s * (o5[1] + o6[1] + o7[1] + o8[1])
-        dbx1 = s * (o5[2] + o6[2] + o7[2] + o8[2])
-        dbx2 = s * (o5[3] + o6[3] + o7[3] + o8[3])
-        dfy0 = s * (o1[4] + o2[4] + o5[4] + o6[4])
-        dfy1 = s * (o1[5] + o2[5] + o5[5] + o6[5])
-        dfy2 = s * (o1[6] + o2[6] + o5[6] + o6[6])
-        dby0 = s * (o3[4] + o4[4] + o7[4] + o8[4])
-        dby1 = s * (o3[5] + o4[5] + o7[5] + o8[5])
-        dby2 = s * (o3[6] + o4[6] + o7[6] + o8[6])
-        dfz0 = s * (o1[7] + o3[7] + o5[7] + o7[7])
-        dfz1 = s * (o1[8] + o3[8] + o5[8] + o7[8])
-        dfz2 = s * (o1[9] + o3[9] + o5[9] + o7[9])
-        dbz0 = s * (o2[7] + o4[7] + o6[7] + o8[7])
-        dbz1 = s * (o2[8] + o4[8] + o6[8] + o8[8])
-        dbz2 = s * (o2[9] + o4[9] + o6[9] + o8[9])
+        s = two * eighth * w
+        # pair weights: the two octants holding each pair
+        wap, waq, wbp, wbq = f1 + f2, f3 + f4, f5 + f6, f7 + f8
+        wau, wav, wbu, wbv = f1 + f3, f2 + f4, f5 + f7, f6 + f8
+        wpu, wpv, wqu, wqv = f1 + f5, f2 + f6, f3 + f7, f4 + f8
+        ga = _pair_grad(wap * np_ + waq * nq + wau * nu + wav * nv + sa, a[0], a[1], a[2],
+                        wap, ap, p, waq, aq, q, wau, au, u, wav, av, v)
+        gb = _pair_grad(wbp * np_ + wbq * nq + wbu * nu + wbv * nv + sb, b[0], b[1], b[2],
+                        wbp, bp, p, wbq, bq, q, wbu, bu, u, wbv, bv, v)
+        gp = _pair_grad(wap * na + wbp * nb_ + wpu * nu + wpv * nv + sp, p[0], p[1], p[2],
+                        wap, ap, a, wbp, bp, b, wpu, pu, u, wpv, pv, v)
+        gq = _pair_grad(waq * na + wbq * nb_ + wqu * nu + wqv * nv + sq, q[0], q[1], q[2],
+                        waq, aq, a, wbq, bq, b, wqu, qu, u, wqv, qv, v)
+        gu = _pair_grad(wau * na + wbu * nb_ + wpu * np_ + wqu * nq + su, u[0], u[1], u[2],
+                        wau, au, a, wbu, bu, b, wpu, pu, p, wqu, qu, q)
+        gv = _pair_grad(wav * na + wbv * nb_ + wpv * np_ + wqv * nq + sv, v[0], v[1], v[2],
+                        wav, av, a, wbv, bv, b, wpv, pv, p, wqv, qv, q)
+        dfx0, dfx1, dfx2 = s * ga[0], s * ga[1], s * ga[2]
+        dbx0, dbx1, dbx2 = s * gb[0], s * gb[1], s * gb[2]
+        dfy0, dfy1, dfy2 = s * gp[0], s * gp[1], s * gp[2]
+        dby0, dby1, dby2 = s * gq[0], s * gq[1], s * gq[2]
+        dfz0, dfz1, dfz2 = s * gu[0], s * gu[1], s * gu[2]
+        dbz0, dbz1, dbz2 = s * gv[0], s * gv[1], s * gv[2]
         g0[k] += dfx0
         g1[k] += dfx1
         g2[k] += dfx2
@@ -649,9 +655,9 @@ def _octant_row(loc, plane, cj, r, dens, wrow, c, mode, constants, logs):
         g15[k] += dbz0
         g16[k] += dbz1
         g17[k] += dbz2
-        qx += dfx0 * a0 + dfx1 * a1 + dfx2 * a2 + dbx0 * b0 + dbx1 * b1 + dbx2 * b2
-        qy += dfy0 * p0 + dfy1 * p1 + dfy2 * p2 + dby0 * q0 + dby1 * q1 + dby2 * q2
-        qz += dfz0 * u0 + dfz1 * u1 + dfz2 * u2 + dbz0 * v0 + dbz1 * v1 + dbz2 * v2
+        qx += dfx0 * a[0] + dfx1 * a[1] + dfx2 * a[2] + dbx0 * b[0] + dbx1 * b[1] + dbx2 * b[2]
+        qy += dfy0 * p[0] + dfy1 * p[1] + dfy2 * p[2] + dby0 * q[0] + dby1 * q[1] + dby2 * q[2]
+        qz += dfz0 * u[0] + dfz1 * u[1] + dfz2 * u[2] + dbz0 * v[0] + dbz1 * v[1] + dbz2 * v[2]
     return e, qx, qy, qz
 
 

@@ -52,6 +52,29 @@ def test_catalogue_survives_concurrent_writers_on_a_local_cluster(tmp_path, by_v
     assert len(catalogue.rows(tmp_path / catalogue.CATALOGUE)) == 24 * ROWS_PER_TASK
 
 
+def record_start(task):
+    """A task that records when it started."""
+    import time
+
+    from solitons import catalogue as cat
+
+    cat.record(f"{task['root']}/{cat.CATALOGUE}", {"task": task["task"], "status": "finished",
+                                                   "energy": float(time.time_ns())})
+    return {"task": task["task"], "status": "finished"}
+
+
+def test_tasks_start_largest_priority_first(tmp_path, by_value):
+    """A survey ranks its tasks by cost; on one worker they start in that order (and the
+    results still come back in the order given)."""
+    tasks = [dict(make_task(tmp_path, f"t{index:02d}", "", tmp_path), priority=(index * 7) % 12)
+             for index in range(12)]
+    results = run_tasks(tasks, workers=1, stream=None, function=record_start)
+    assert [r["task"] for r in results] == [t["task"] for t in tasks]
+    started = sorted(catalogue.rows(tmp_path / catalogue.CATALOGUE), key=lambda row: row["energy"])
+    ranks = {t["task"]: t["priority"] for t in tasks}
+    assert [ranks[row["task"]] for row in started] == sorted(ranks.values(), reverse=True)
+
+
 GOOD = """
 [grid]
 points = 21

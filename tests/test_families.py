@@ -80,21 +80,30 @@ def test_noise_is_seeded_and_keeps_unit_length():
 
 def test_builtin_survey_families_reach_charge_16():
     """The built-in survey list has families for every Q = 1..16, each with the charge its
-    formula gives (Sutcliffe 2007, as above); the link and axial maps added for Q = 9..16
-    read their charge in the Whitehead integral to 1 % at size 1.5 on this grid.  The
-    torus-knot maps with large numerator powers do not at this resolution (measured at
-    size 1.5 here: (5,2;3,2) 6.03 for 16, (3,3;3,2) 7.31 for 15; at size 2.5 on 192^3,
-    h = 0.1: 14.3 and 14.2; (3,1;3,2) 8.63, 8.94, 9.00 for 9 at size / h = 12, 16, 20),
-    so they are not asserted here: a survey has to give them that resolution."""
+    formula gives (Sutcliffe 2007, as above)."""
     from solitons.charge_survey import DEFAULT_FAMILIES
 
-    charges = {expected_charge(f) for f in DEFAULT_FAMILIES}
-    assert charges == set(range(1, 17))
+    assert {expected_charge(f) for f in DEFAULT_FAMILIES} == set(range(1, 17))
+
+
+@pytest.mark.slow
+def test_builtin_families_carry_their_charge_at_the_survey_spacing():
+    """Each built-in family from Q = 9 on, at its own size and box and h = 0.2 (the
+    spacing of analysis/survey_q1_16): the Whitehead integral reads at least 0.86 of the
+    formula's charge (link and axial maps: within 1 %).  Below that the start is a lattice
+    field of another charge (measured: a (5,2;3,2) map read 5.7 of 16 and collapsed, a
+    (3,1;3,2) map read 8.0 of 9 and relaxed to a Q = 9.0000 trefoil); the torus-knot maps
+    with large numerator powers need size / h of 20-25 (measured: (5,2;3,2) 6.03, 9.66,
+    12.3, 14.3 for 16 at size / h = 12, 16, 20, 25), so the list leaves them out."""
+    from solitons.charge_survey import DEFAULT_FAMILIES
+
     for family in DEFAULT_FAMILIES:
-        if expected_charge(family) < 9 or family["family"] == "torus_knot":
+        charge = expected_charge(family)
+        if charge < 9:
             continue
+        points = int(np.ceil(family["box"] / 0.2)) + 1
+        grid = Grid.centred(points + 1 - points % 2, 0.2, "fixed")
         part = {k: v for k, v in family.items() if k != "box"}
-        part.update(size=1.5, orientation=(20.0, 35.0, -10.0))
-        charge = expected_charge(part)
-        measured = hopf_charge(initial_field(GRID, part), GRID)
-        assert abs(measured - charge) < 0.01 * charge, (family, measured)
+        measured = hopf_charge(initial_field(grid, part), grid)
+        floor = 0.99 if family["family"] != "torus_knot" else 0.86
+        assert floor * charge < measured < charge + 0.05, (family, measured)

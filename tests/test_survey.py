@@ -8,7 +8,7 @@ import matplotlib.image
 import pytest
 
 from solitons import catalogue
-from solitons.charge_survey import read_survey
+from solitons.charge_survey import grid_text, read_survey
 from solitons.cli import main
 from solitons.config import ConfigError
 
@@ -65,6 +65,7 @@ def test_survey_q1_to_3_end_to_end(tmp_path, capsys):
     assert {r["task"]: r["finished_at"] for r in catalogue.rows(out / catalogue.CATALOGUE)} == first
     table = (out / "survey.md").read_text()
     assert "| 4 | axial(2,2) | NOT RUN |" in table and "| 4 | axial(4,1) | NOT RUN |" in table
+    assert table.count("| 33x33x33, box 8 |") == 5  # every run's own grid, the last column
 
 
 def test_survey_input_errors(tmp_path):
@@ -97,6 +98,7 @@ def test_family_box_enlarges_a_smaller_box(tmp_path):
     points = {q: spec.grid.points for q, _, _, spec in tasks}
     assert points[9] == (73, 73, 73)  # 18 / 0.25 + 1 = 73 sites, side 18
     assert points[1] == (41, 41, 41)
+    assert [grid_text(spec) for q, _, _, spec in tasks] == ["41x41x41, box 10", "73x73x73, box 18"]
     path.write_text(path.read_text().replace("points = 41", "points = 81"))
     _, tasks = read_survey(path)
     assert {q: spec.grid.points for q, _, _, spec in tasks}[9] == (81, 81, 81)

@@ -128,3 +128,21 @@ def test_a_box_that_squeezes_the_soliton_is_named(tmp_path):
     assert summary["verdict"] == "box too small", summary["warnings"]
     assert summary["evidence"]["needed_box_side"] > 8.0
     assert abs(summary["hopf_charge"] - 1) < 1e-3
+
+
+def test_a_run_the_energy_rule_stopped_says_so(tmp_path):
+    """A loose energy rule (relative change below 1e-3 for 3 steps) stops the Q = 1
+    relaxation while the largest force is still far above force_tol: the run counts as
+    converged (the stopping rule was met) but its summary names the rule and warns; with
+    the rule off the same run reaches the force rule (common practice: report which
+    criterion stopped a minimiser)."""
+    text = ("[grid]\npoints = 41\nspacing = 0.2\n[relax]\nmax_steps = 400\nforce_tol = 1e-3\n"
+            "energy_tol = 1e-3\npatience = 3\nsaddle_check = false\n")
+    loose = relax(load(None, text=text), tmp_path / "loose", stream=None)
+    assert loose["converged"] and loose["stopped_by"] == "energy"
+    assert loose["max_force"] > 10 * 1e-3
+    assert any(w.startswith("stopped by the energy rule") and "x force_tol" in w for w in loose["warnings"])
+    tight = relax(load(None, text=text.replace("energy_tol = 1e-3", "energy_tol = 0.0")), tmp_path / "tight",
+                  stream=None)
+    assert tight["converged"] and tight["stopped_by"] == "force" and tight["max_force"] < 1e-3
+    assert not any(w.startswith("stopped by the energy rule") for w in tight["warnings"])
