@@ -9,7 +9,8 @@ sixth-order schemes at 128; then, on the default sixth-order scheme at N = 64, 9
 the default model plus each built-in correction (coupling 0.1), plus all seven, and plus
 user-file copies of log_quartic and sextic, on the numba routes (the staged kernel; the
 user terms compiled pointwise, `solitons.pointwise`), with the ratio to the default kernel
-at the same N and precision ("/default"); the user copies at N = 64 also on the jax
+at the same N and precision ("/default", the two timed alternately, seven times each, every timed call right after an
+untimed one of its own, and the medians divided, so that both see the same state of the machine); the user copies at N = 64 also on the jax
 pointwise evaluator (the route before the compiled one, still the fallback); and each
 correction on the jax autodiff route at N = 64.  The kernel's work arrays are a padded component-major copy
 of the field (3 values per site), the density (1) and, per thread, a ring of nine
@@ -49,9 +50,9 @@ def copy_bandwidth(megabytes: int = 512, repeats: int = 5) -> float:
     return 2 * source.nbytes / min(times)
 
 
-def time_evaluation(model: Model, field, repeats: int = 5) -> float:
-    """Median seconds of one value_and_grad: Model.evaluate on the kernel route (as the
-    L-BFGS loop calls it), the jitted jax function otherwise."""
+def evaluation(model: Model, field):
+    """One value_and_grad, warmed up: Model.evaluate on the kernel route (as the L-BFGS
+    loop calls it), the jitted jax function otherwise."""
     if model.uses_kernel:
         field = np.asarray(field)
         out = np.empty_like(field)
@@ -62,12 +63,32 @@ def time_evaluation(model: Model, field, repeats: int = 5) -> float:
         def run():
             model.value_and_grad(field)[1].block_until_ready()
     run()  # compile and warm up
-    times = []
+    return run
+
+
+def seconds_of(run) -> float:
+    start = time.perf_counter()
+    run()
+    return time.perf_counter() - start
+
+
+def time_evaluation(model: Model, field, repeats: int = 5) -> float:
+    """Median seconds of one value_and_grad."""
+    run = evaluation(model, field)
+    return statistics.median(seconds_of(run) for _ in range(repeats))
+
+
+def time_against(run, reference, repeats: int = 7) -> tuple[float, float]:
+    """Median seconds of ``run`` and of ``reference`` timed alternately, so that the ratio
+    of the two comes from one window of the machine's state (drifts of the clock or of
+    other tenants hit both alike)."""
+    mine, theirs = [], []
     for _ in range(repeats):
-        start = time.perf_counter()
+        reference()  # untimed: each timed call follows one of its own kind (warm caches and threads;
+        theirs.append(seconds_of(reference))  # timing right after the other model read the default 10-80 % slow)
         run()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
+        mine.append(seconds_of(run))
+    return statistics.median(mine), statistics.median(theirs)
 
 
 CORRECTIONS = ("dirichlet_squared", "strain_squared", "potential", "laplacian_squared", "sextic", "chiral",
@@ -125,13 +146,19 @@ def main() -> None:
         base = add_noise(hopf_map(grid, 1.0), grid, 0.01, 0)
         for dtype in dtypes:
             field = jnp.asarray(base, dtype=dtype)
-            seconds = time_evaluation(model, field)
-            per_point = seconds / grid.npoints
-            floor = 6 * jnp.dtype(dtype).itemsize / bandwidth
             key = (points, scheme, jnp.dtype(dtype).name)
             if label == "default" and backend == "numba":
-                reference[key] = per_point
-            ratio = f"{per_point / reference[key]:8.2f}" if key in reference else "       -"
+                reference[key] = evaluation(model, field)
+                seconds = time_evaluation(model, field)
+                ratio_value = 1.0
+            elif key in reference:  # timed alternately with the default kernel: the ratio from one window
+                seconds, default_seconds = time_against(evaluation(model, field), reference[key])
+                ratio_value = seconds / default_seconds
+            else:
+                seconds, ratio_value = time_evaluation(model, field), None
+            per_point = seconds / grid.npoints
+            floor = 6 * jnp.dtype(dtype).itemsize / bandwidth
+            ratio = f"{ratio_value:8.2f}" if ratio_value is not None else "       -"
             route = "numba" if model.uses_kernel else "jax"
             print(f"{label:26s} {route:6s}  {scheme:7s} {points:4d}  {jnp.dtype(dtype).name:8s} {1e3 * seconds:9.1f} "
                   f"{1e9 * per_point:9.0f}  {ratio}  {per_point / floor:6.0f}", flush=True)

@@ -359,7 +359,11 @@ def plot_survey(rows: list[dict], path: Path, spec) -> Path:
     ax.set_xlabel("Hopf charge Q")
     ax.set_ylabel("E / Q^(3/4)")
     ax.set_ylim(0.45, max(1.6, float(ratio.max()) + 0.05 if len(ratio) else 1.6))
-    ax.set_title(resolution_text(spec).split(";")[0], fontsize=8)
+    title = resolution_text(spec).split(";")[0]
+    grids = sorted({r["grid"] for r in rows if "grid" in r}, key=lambda g: int(g.split("x")[0]))
+    if len(grids) > 1:  # families with a box key ran on larger grids
+        title = title.split(", box side")[0] + f"; grids {grids[0]} to {grids[-1]} (per run: survey.md)"
+    ax.set_title(title, fontsize=8)
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="lower right")
     return save_figure(fig, path)

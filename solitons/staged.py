@@ -11,15 +11,14 @@ row of sites (fixed x-plane i and row j, all k) goes through three stages:
    Laplacian (3 rows) and its per-axis scaling parts (9 rows, for the virial).
 2. The plain model's site algebra (`solitons.kernels._site`) and then one row function
    per active correction term add the derivatives of w * coupling * density with respect
-   to every local field into the row's derivative plane (rows 0-17 differences, 18-20 n,
-   21-23 Laplacian), the density into the density row, and return the term's energy and
+   to every local field into the row's derivative plane (rows 0-17 differences, each
+   already times its difference factor, as the gather expects; 18-20 n, 21-23 Laplacian), the density into the density row, and return the term's energy and
    its per-axis virial piece ``Q_a = sum_sites w dens/d(local) . (scaling of local under
    h_a)``, so that h_a dE/dh_a = E - Q_a (derived: each difference along a carries 1/h_a,
    the Laplacian's axis-a part 1/h_a^2 (1/h_a for the stretched correction), the cell
    volume h_x h_y h_z).  A term's row function is independent of the others: adding a
    built-in term to this route is one row function, one slot in `EXTRA_KINDS`, one test.
-3. The difference rows are multiplied by their difference factors and gathered into
-   dE/dn by `solitons.kernels._plane_gradient` (or its narrow form); the n and Laplacian
+3. The difference rows are gathered into dE/dn by `solitons.kernels._plane_gradient` (or its narrow form); the n and Laplacian
    rows by ``_plane_gradient_extra`` (the Laplacian with the transposed central stencil).
 
 Terms the row functions do not know (user terms, a second term of a kind already taken)
@@ -216,7 +215,7 @@ def _stage_laplacian_wide(buf, r, ci, cj, lap_x, lap_y, lap_z, loc):
 # into dens, and returns (energy sum of w * coupling * density, Q_x, Q_y, Q_z).
 
 @nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
-def _dirichlet_squared_row(loc, plane, cj, r, dens, wrow, c):
+def _dirichlet_squared_row(loc, plane, cj, r, dens, wrow, c, ixf, ixb, iyf, iyb, fz, bz):
     real = loc.dtype.type
     c, half, two = real(c), real(0.5), real(2.0)
     fx0, fx1, fx2, bx0, bx1, bx2 = loc[0], loc[1], loc[2], loc[3], loc[4], loc[5]
@@ -246,24 +245,25 @@ def _dirichlet_squared_row(loc, plane, cj, r, dens, wrow, c):
         afx, abx = cw * (ffx + my + mz), cw * (bbx + my + mz)
         afy, aby = cw * (ffy + mx + mz), cw * (bby + mx + mz)
         afz, abz = cw * (ffz + mx + my), cw * (bbz + mx + my)
-        g0[k] += afx * fx0[k]
-        g1[k] += afx * fx1[k]
-        g2[k] += afx * fx2[k]
-        g3[k] += abx * bx0[k]
-        g4[k] += abx * bx1[k]
-        g5[k] += abx * bx2[k]
-        g6[k] += afy * fy0[k]
-        g7[k] += afy * fy1[k]
-        g8[k] += afy * fy2[k]
-        g9[k] += aby * by0[k]
-        g10[k] += aby * by1[k]
-        g11[k] += aby * by2[k]
-        g12[k] += afz * fz0[k]
-        g13[k] += afz * fz1[k]
-        g14[k] += afz * fz2[k]
-        g15[k] += abz * bz0[k]
-        g16[k] += abz * bz1[k]
-        g17[k] += abz * bz2[k]
+        sfx, sbx, sfy, sby, sfz, sbz = afx * ixf, abx * ixb, afy * iyf, aby * iyb, afz * fz[k], abz * bz[k]
+        g0[k] += sfx * fx0[k]
+        g1[k] += sfx * fx1[k]
+        g2[k] += sfx * fx2[k]
+        g3[k] += sbx * bx0[k]
+        g4[k] += sbx * bx1[k]
+        g5[k] += sbx * bx2[k]
+        g6[k] += sfy * fy0[k]
+        g7[k] += sfy * fy1[k]
+        g8[k] += sfy * fy2[k]
+        g9[k] += sby * by0[k]
+        g10[k] += sby * by1[k]
+        g11[k] += sby * by2[k]
+        g12[k] += sfz * fz0[k]
+        g13[k] += sfz * fz1[k]
+        g14[k] += sfz * fz2[k]
+        g15[k] += sbz * bz0[k]
+        g16[k] += sbz * bz1[k]
+        g17[k] += sbz * bz2[k]
         qx += afx * ffx + abx * bbx
         qy += afy * ffy + aby * bby
         qz += afz * ffz + abz * bbz
@@ -271,7 +271,7 @@ def _dirichlet_squared_row(loc, plane, cj, r, dens, wrow, c):
 
 
 @nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
-def _strain_squared_row(loc, plane, cj, r, dens, wrow, c):
+def _strain_squared_row(loc, plane, cj, r, dens, wrow, c, ixf, ixb, iyf, iyb, fz, bz):
     real = loc.dtype.type
     c, half, two = real(c), real(0.5), real(2.0)
     fx0, fx1, fx2, bx0, bx1, bx2 = loc[0], loc[1], loc[2], loc[3], loc[4], loc[5]
@@ -311,32 +311,35 @@ def _strain_squared_row(loc, plane, cj, r, dens, wrow, c):
         k01, k02, k12 = cw * (y01 + z01), cw * (y02 + z02), cw * (y12 + z12)
         sf, sb = two * cw * ffx, two * cw * bbx
         a0, a1, a2, b0, b1, b2 = fx0[k], fx1[k], fx2[k], bx0[k], bx1[k], bx2[k]
-        g0[k] += sf * a0 + k00 * a0 + k01 * a1 + k02 * a2
-        g1[k] += sf * a1 + k01 * a0 + k11 * a1 + k12 * a2
-        g2[k] += sf * a2 + k02 * a0 + k12 * a1 + k22 * a2
-        g3[k] += sb * b0 + k00 * b0 + k01 * b1 + k02 * b2
-        g4[k] += sb * b1 + k01 * b0 + k11 * b1 + k12 * b2
-        g5[k] += sb * b2 + k02 * b0 + k12 * b1 + k22 * b2
+        tf, tb = ixf, ixb
+        g0[k] += tf * (sf * a0 + k00 * a0 + k01 * a1 + k02 * a2)
+        g1[k] += tf * (sf * a1 + k01 * a0 + k11 * a1 + k12 * a2)
+        g2[k] += tf * (sf * a2 + k02 * a0 + k12 * a1 + k22 * a2)
+        g3[k] += tb * (sb * b0 + k00 * b0 + k01 * b1 + k02 * b2)
+        g4[k] += tb * (sb * b1 + k01 * b0 + k11 * b1 + k12 * b2)
+        g5[k] += tb * (sb * b2 + k02 * b0 + k12 * b1 + k22 * b2)
         k00, k11, k22 = cw * (x00 + z00), cw * (x11 + z11), cw * (x22 + z22)
         k01, k02, k12 = cw * (x01 + z01), cw * (x02 + z02), cw * (x12 + z12)
         sf, sb = two * cw * ffy, two * cw * bby
         a0, a1, a2, b0, b1, b2 = fy0[k], fy1[k], fy2[k], by0[k], by1[k], by2[k]
-        g6[k] += sf * a0 + k00 * a0 + k01 * a1 + k02 * a2
-        g7[k] += sf * a1 + k01 * a0 + k11 * a1 + k12 * a2
-        g8[k] += sf * a2 + k02 * a0 + k12 * a1 + k22 * a2
-        g9[k] += sb * b0 + k00 * b0 + k01 * b1 + k02 * b2
-        g10[k] += sb * b1 + k01 * b0 + k11 * b1 + k12 * b2
-        g11[k] += sb * b2 + k02 * b0 + k12 * b1 + k22 * b2
+        tf, tb = iyf, iyb
+        g6[k] += tf * (sf * a0 + k00 * a0 + k01 * a1 + k02 * a2)
+        g7[k] += tf * (sf * a1 + k01 * a0 + k11 * a1 + k12 * a2)
+        g8[k] += tf * (sf * a2 + k02 * a0 + k12 * a1 + k22 * a2)
+        g9[k] += tb * (sb * b0 + k00 * b0 + k01 * b1 + k02 * b2)
+        g10[k] += tb * (sb * b1 + k01 * b0 + k11 * b1 + k12 * b2)
+        g11[k] += tb * (sb * b2 + k02 * b0 + k12 * b1 + k22 * b2)
         k00, k11, k22 = cw * (x00 + y00), cw * (x11 + y11), cw * (x22 + y22)
         k01, k02, k12 = cw * (x01 + y01), cw * (x02 + y02), cw * (x12 + y12)
         sf, sb = two * cw * ffz, two * cw * bbz
         a0, a1, a2, b0, b1, b2 = fz0[k], fz1[k], fz2[k], bz0[k], bz1[k], bz2[k]
-        g12[k] += sf * a0 + k00 * a0 + k01 * a1 + k02 * a2
-        g13[k] += sf * a1 + k01 * a0 + k11 * a1 + k12 * a2
-        g14[k] += sf * a2 + k02 * a0 + k12 * a1 + k22 * a2
-        g15[k] += sb * b0 + k00 * b0 + k01 * b1 + k02 * b2
-        g16[k] += sb * b1 + k01 * b0 + k11 * b1 + k12 * b2
-        g17[k] += sb * b2 + k02 * b0 + k12 * b1 + k22 * b2
+        tf, tb = fz[k], bz[k]
+        g12[k] += tf * (sf * a0 + k00 * a0 + k01 * a1 + k02 * a2)
+        g13[k] += tf * (sf * a1 + k01 * a0 + k11 * a1 + k12 * a2)
+        g14[k] += tf * (sf * a2 + k02 * a0 + k12 * a1 + k22 * a2)
+        g15[k] += tb * (sb * b0 + k00 * b0 + k01 * b1 + k02 * b2)
+        g16[k] += tb * (sb * b1 + k01 * b0 + k11 * b1 + k12 * b2)
+        g17[k] += tb * (sb * b2 + k02 * b0 + k12 * b1 + k22 * b2)
         # Q_a = 2 (F_a^2 + B_a^2) + <M_a, M_b> + <M_a, M_c>, times c w
         qx += cw * (two * (ffx * ffx + bbx * bbx) + xy + xz)
         qy += cw * (two * (ffy * ffy + bby * bby) + xy + yz)
@@ -395,7 +398,7 @@ def _laplacian_squared_row(loc, plane, cj, r, dens, wrow, c):
 
 
 @nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
-def _chiral_row(loc, plane, cj, r, dens, wrow, c):
+def _chiral_row(loc, plane, cj, r, dens, wrow, c, ixf, ixb, iyf, iyb, fz, bz):
     """n . curl n; linear in the differences, so the octant average is n . curl of the
     mean difference (f_a + b_a) / 2."""
     real = loc.dtype.type
@@ -424,18 +427,21 @@ def _chiral_row(loc, plane, cj, r, dens, wrow, c):
         gn2[k] += cw * curl2
         h = half * cw
         # d rho / d dbar_x = (0, n2, -n1), d/d dbar_y = (-n2, 0, n0), d/d dbar_z = (n1, -n0, 0)
-        g1[k] += h * m2
-        g2[k] -= h * m1
-        g4[k] += h * m2
-        g5[k] -= h * m1
-        g6[k] -= h * m2
-        g8[k] += h * m0
-        g9[k] -= h * m2
-        g11[k] += h * m0
-        g12[k] += h * m1
-        g13[k] -= h * m0
-        g15[k] += h * m1
-        g16[k] -= h * m0
+        hf, hb = h * ixf, h * ixb
+        g1[k] += hf * m2
+        g2[k] -= hf * m1
+        g4[k] += hb * m2
+        g5[k] -= hb * m1
+        hf, hb = h * iyf, h * iyb
+        g6[k] -= hf * m2
+        g8[k] += hf * m0
+        g9[k] -= hb * m2
+        g11[k] += hb * m0
+        hf, hb = h * fz[k], h * bz[k]
+        g12[k] += hf * m1
+        g13[k] -= hf * m0
+        g15[k] += hb * m1
+        g16[k] -= hb * m0
         qx += cw * (ax1 * m2 - ax2 * m1)
         qy += cw * (ay2 * m0 - ay0 * m2)
         qz += cw * (az0 * m1 - az1 * m0)
@@ -493,14 +499,14 @@ def _pair_h2(a, b, p, q, u, v):
 
 
 @nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
-def _sextic_row(loc, plane, cj, r, dens, wrow, c, constants, logs):
-    return _pair_row(loc, plane, cj, r, dens, wrow, c, 0, constants, logs)
+def _sextic_row(loc, plane, cj, r, dens, wrow, c, constants, logs, ixf, ixb, iyf, iyb, fz, bz):
+    return _pair_row(loc, plane, cj, r, dens, wrow, c, 0, constants, logs, ixf, ixb, iyf, iyb, fz, bz)
 
 
 @nb.njit(cache=True, fastmath=_FAST, error_model="numpy")
-def _log_quartic_row(loc, plane, cj, r, dens, wrow, c, constants, logs):
+def _log_quartic_row(loc, plane, cj, r, dens, wrow, c, constants, logs, ixf, ixb, iyf, iyb, fz, bz):
     _row_logarithms(loc, constants, logs)
-    return _pair_row(loc, plane, cj, r, dens, wrow, c, 1, constants, logs)
+    return _pair_row(loc, plane, cj, r, dens, wrow, c, 1, constants, logs, ixf, ixb, iyf, iyb, fz, bz)
 
 
 _LN2_HI, _LN2_LO = 6.93147180369123816490e-01, 1.90821492927058770002e-10  # fdlibm's split of ln 2
@@ -570,7 +576,7 @@ def _row_logarithms(loc, constants, logs):
 
 
 @nb.njit(inline="always", fastmath=_FAST, error_model="numpy")
-def _pair_row(loc, plane, cj, r, dens, wrow, c, mode, constants, logs):
+def _pair_row(loc, plane, cj, r, dens, wrow, c, mode, constants, logs, ixf, ixb, iyf, iyb, fz, bz):
     """Term ``mode`` (0 sextic H^2 D, 1 log_quartic H^2 (c0 + c1 ln((H^2 + delta m4) / m4)),
     its logarithms in ``logs`` from `_row_logarithms`) averaged over the eight octants,
     through the twelve axis pairs (see above).  ``mode`` is a constant in each caller, so
@@ -637,24 +643,25 @@ def _pair_row(loc, plane, cj, r, dens, wrow, c, mode, constants, logs):
         dby0, dby1, dby2 = s * gq[0], s * gq[1], s * gq[2]
         dfz0, dfz1, dfz2 = s * gu[0], s * gu[1], s * gu[2]
         dbz0, dbz1, dbz2 = s * gv[0], s * gv[1], s * gv[2]
-        g0[k] += dfx0
-        g1[k] += dfx1
-        g2[k] += dfx2
-        g3[k] += dbx0
-        g4[k] += dbx1
-        g5[k] += dbx2
-        g6[k] += dfy0
-        g7[k] += dfy1
-        g8[k] += dfy2
-        g9[k] += dby0
-        g10[k] += dby1
-        g11[k] += dby2
-        g12[k] += dfz0
-        g13[k] += dfz1
-        g14[k] += dfz2
-        g15[k] += dbz0
-        g16[k] += dbz1
-        g17[k] += dbz2
+        tzf, tzb = fz[k], bz[k]
+        g0[k] += ixf * dfx0
+        g1[k] += ixf * dfx1
+        g2[k] += ixf * dfx2
+        g3[k] += ixb * dbx0
+        g4[k] += ixb * dbx1
+        g5[k] += ixb * dbx2
+        g6[k] += iyf * dfy0
+        g7[k] += iyf * dfy1
+        g8[k] += iyf * dfy2
+        g9[k] += iyb * dby0
+        g10[k] += iyb * dby1
+        g11[k] += iyb * dby2
+        g12[k] += tzf * dfz0
+        g13[k] += tzf * dfz1
+        g14[k] += tzf * dfz2
+        g15[k] += tzb * dbz0
+        g16[k] += tzb * dbz1
+        g17[k] += tzb * dbz2
         qx += dfx0 * a[0] + dfx1 * a[1] + dfx2 * a[2] + dbx0 * b[0] + dbx1 * b[1] + dbx2 * b[2]
         qy += dfy0 * p[0] + dfy1 * p[1] + dfy2 * p[2] + dby0 * q[0] + dby1 * q[1] + dby2 * q[2]
         qz += dfz0 * u[0] + dfz1 * u[1] + dfz2 * u[2] + dbz0 * v[0] + dbz1 * v[1] + dbz2 * v[2]
@@ -672,7 +679,7 @@ def _plane_staged(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, coefs, la
     ny, nz = buf.shape[2] - 2 * r, buf.shape[3] - 2 * r
     real = buf.dtype.type
     c2, c4 = real(coefs[0]), real(coefs[1])
-    h, half, quarter, two, one = real(0.5 * coefs[1]), real(0.5), real(0.25), real(2.0), real(1.0)
+    h, half, quarter, two = real(0.5 * coefs[1]), real(0.5), real(0.25), real(2.0)
     constants = (c2, c4, h, half, quarter, two)
     sums = np.zeros(SLOTS)
     ci = i + r
@@ -707,7 +714,7 @@ def _plane_staged(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, coefs, la
                 (e0, e1, e2, e3, e4, e5, e, g0, g1, g2, g3, g4, g5, g6, g7, g8, g9, g10, g11, g12, g13, g14, g15,
                  g16, g17) = _site((l0[k], l1[k], l2[k], l3[k], l4[k], l5[k], l6[k], l7[k], l8[k], l9[k], l10[k],
                                     l11[k], l12[k], l13[k], l14[k], l15[k], l16[k], l17[k]),
-                                   constants, wrow[k], (one, one, one, one, one, one))
+                                   constants, wrow[k], (ixf, ixb, iyf, iyb, fz[k], bz[k]))
                 dens[k] = e
                 d0[k], d1[k], d2[k], d3[k], d4[k], d5[k] = g0, g1, g2, g3, g4, g5
                 d6[k], d7[k], d8[k], d9[k], d10[k], d11[k] = g6, g7, g8, g9, g10, g11
@@ -729,41 +736,41 @@ def _plane_staged(buf, r, i, taps, fx, bx, fy, by, fz, bz, wx, wy, wz, coefs, la
             if c == 0.0:
                 continue
             if slot == 0:
-                piece = _dirichlet_squared_row(loc, plane, cj, r, dens, wrow, c)
+                piece = _dirichlet_squared_row(loc, plane, cj, r, dens, wrow, c, ixf, ixb, iyf, iyb, fz, bz)
             elif slot == 1:
-                piece = _strain_squared_row(loc, plane, cj, r, dens, wrow, c)
+                piece = _strain_squared_row(loc, plane, cj, r, dens, wrow, c, ixf, ixb, iyf, iyb, fz, bz)
             elif slot == 2:
                 piece = _potential_row(loc, plane, cj, r, dens, wrow, c, coefs[5])
             elif slot == 3:
                 piece = _laplacian_squared_row(loc, plane, cj, r, dens, wrow, c)
             elif slot == 4:
-                piece = _sextic_row(loc, plane, cj, r, dens, wrow, c, sextic_constants, logs)
+                piece = _sextic_row(loc, plane, cj, r, dens, wrow, c, sextic_constants, logs, ixf, ixb, iyf, iyb,
+                                    fz, bz)
             elif slot == 5:
-                piece = _chiral_row(loc, plane, cj, r, dens, wrow, c)
+                piece = _chiral_row(loc, plane, cj, r, dens, wrow, c, ixf, ixb, iyf, iyb, fz, bz)
             else:
-                piece = _log_quartic_row(loc, plane, cj, r, dens, wrow, c, log_constants, logs)
+                piece = _log_quartic_row(loc, plane, cj, r, dens, wrow, c, log_constants, logs, ixf, ixb, iyf, iyb,
+                                         fz, bz)
             sums[6 + slot] += piece[0]
             sums[13] += piece[1]
             sums[14] += piece[2]
             sums[15] += piece[3]
-        if user:
+        if user:  # precomputed rows: the difference rows (0-17) times their factors, as the row functions do
             for q in range(user_der.shape[0]):
                 row = rows[q]
                 extra = user_der[q, i, j]
-                for k in range(nz):
-                    row[k] += extra[k]
-        # stage 3 starts here: the difference rows times their factors
-        for c in range(3):
-            a0, a1 = rows[c], rows[3 + c]
-            a2, a3 = rows[6 + c], rows[9 + c]
-            a4, a5 = rows[12 + c], rows[15 + c]
-            for k in range(nz):
-                a0[k] *= ixf
-                a1[k] *= ixb
-                a2[k] *= iyf
-                a3[k] *= iyb
-                a4[k] *= fz[k]
-                a5[k] *= bz[k]
+                group = q // 3
+                if group >= 6:
+                    for k in range(nz):
+                        row[k] += extra[k]
+                elif group == 4 or group == 5:
+                    factor_z = fz if group == 4 else bz
+                    for k in range(nz):
+                        row[k] += factor_z[k] * extra[k]
+                else:
+                    factor = (ixf, ixb, iyf, iyb)[group]
+                    for k in range(nz):
+                        row[k] += factor * extra[k]
     return sums
 
 
