@@ -218,10 +218,8 @@ def run_survey(path, out_dir, overrides=(), scheduler: str | None = None, worker
         if (previous and previous["config_hash"] == run_hash(spec)
                 and (out / name / RESULT).exists() and (out / name / SUMMARY).exists()):
             continue  # finished before with the same configuration
-        task = make_task(out, name, spec.text, base_dir, continuum=table["continuum"], family=describe(part),
-                         expected_charge=q)
-        task["priority"] = task_priority(q, spec)
-        tasks.append(task)
+        tasks.append(make_task(out, name, spec.text, base_dir, continuum=table["continuum"],
+                               priority=task_priority(q, spec), family=describe(part), expected_charge=q))
     if stream is not None:
         g = table["spec"].grid
         print(f"survey: {len(entries)} runs for Q = {table['charges']} ({len(entries) - len(tasks)} finished "

@@ -45,11 +45,12 @@ def model_text(spec) -> str:
 
 
 def make_task(root: str | Path, name: str, text: str, base_dir: str | Path, continuum: list[float] | None = None,
-              **labels) -> dict:
+              priority: int = 0, **labels) -> dict:
     """A task: relax ``text`` into root/name, or, with ``continuum`` (spacings), run the
-    continuum command on it there (`solitons.continuum.run_continuum` with publish)."""
+    continuum command on it there (`solitons.continuum.run_continuum` with publish).
+    ``priority``: `run_tasks` starts higher ones first."""
     return {"root": str(root), "task": name, "text": text, "base_dir": str(base_dir), "labels": labels,
-            "continuum": continuum, "priority": 0}
+            "continuum": continuum, "priority": int(priority)}
 
 
 def execute(task: dict) -> dict:

@@ -66,8 +66,7 @@ def record_start(task):
 def test_tasks_start_largest_priority_first(tmp_path, by_value):
     """A survey ranks its tasks by cost; on one worker they start in that order (and the
     results still come back in the order given)."""
-    tasks = [dict(make_task(tmp_path, f"t{index:02d}", "", tmp_path), priority=(index * 7) % 12)
-             for index in range(12)]
+    tasks = [make_task(tmp_path, f"t{index:02d}", "", tmp_path, priority=(index * 7) % 12) for index in range(12)]
     results = run_tasks(tasks, workers=1, stream=None, function=record_start)
     assert [r["task"] for r in results] == [t["task"] for t in tasks]
     started = sorted(catalogue.rows(tmp_path / catalogue.CATALOGUE), key=lambda row: row["energy"])
