@@ -8,7 +8,7 @@ N = 64, 96, 128 on both routes (the fused numba kernel and jax autodiff), the fo
 sixth-order schemes at 128; then, on the default sixth-order scheme at N = 64, 96, 128,
 the default model plus each built-in correction (coupling 0.1), plus all seven, and plus
 user-file copies of log_quartic and sextic, on the numba routes (the staged kernel; the
-user terms compiled pointwise, `solitons.pointwise`), with the ratio to the default kernel
+user terms compiled pointwise, `solitons.model.routes.pointwise`), with the ratio to the default kernel
 at the same N and precision ("/default", the two timed alternately, seven times each, every timed call right after an
 untimed one of its own, and the medians divided, so that both see the same state of the machine); the user copies at N = 64 also on the jax
 pointwise evaluator (the route before the compiled one, still the fallback); and each
@@ -31,11 +31,11 @@ import jax.numpy as jnp
 import numpy as np
 
 import solitons  # noqa: F401  (float64 on)
-from solitons import pointwise
-from solitons.energy import Model
-from solitons.grid import Grid
-from solitons.initial import add_noise, hopf_map
-from solitons.terms import BUILTIN_TERMS, Term
+from solitons.lattice.grid import Grid
+from solitons.model.energy import Model
+from solitons.model.routes import pointwise
+from solitons.model.terms import BUILTIN_TERMS, Term
+from solitons.relaxation.initial import add_noise, hopf_map
 
 
 def copy_bandwidth(megabytes: int = 512, repeats: int = 5) -> float:
@@ -99,7 +99,7 @@ def main() -> None:
     import sys
     from pathlib import Path
 
-    from solitons.userterms import load_user_term
+    from solitons.model.userterms import load_user_term
 
     bandwidth = copy_bandwidth()
     print(f"copy bandwidth {bandwidth / 1e9:.1f} GB/s; jax {jax.__version__}, devices {jax.devices()}")

@@ -23,8 +23,8 @@ import json, resource, sys
 import numpy as np
 import solitons
 from solitons.config import load
-from solitons.driver import make_grid, make_model, make_initial_field
-from solitons.minimise import StoppingRule, minimise
+from solitons.run import make_grid, make_model, make_initial_field
+from solitons.relaxation.minimise import StoppingRule, minimise
 points, scheme = int(sys.argv[1]), sys.argv[2]
 overrides = [f"grid.points={points}", f"grid.scheme={scheme!r}".replace("'", '"')] + sys.argv[3:]
 spec = load(None, overrides, text="")

@@ -19,13 +19,13 @@ import time
 import numpy as np
 
 import solitons  # noqa: F401
-from solitons import minimise as minimise_module
-from solitons.energy import Model
-from solitons.grid import Grid
-from solitons.initial import hopf_map, interpolate_field
-from solitons.minimise import METHODS, StoppingRule, minimise
-from solitons.terms import BUILTIN_TERMS, Term
-from solitons.topology import hopf_charge
+from solitons.lattice.grid import Grid
+from solitons.measure.topology import hopf_charge
+from solitons.model.energy import Model
+from solitons.model.terms import BUILTIN_TERMS, Term
+from solitons.relaxation import minimise as minimise_module
+from solitons.relaxation.initial import hopf_map, interpolate_field
+from solitons.relaxation.minimise import METHODS, StoppingRule, minimise
 
 
 def main() -> None:
@@ -52,7 +52,7 @@ def main() -> None:
     if args.user:
         from pathlib import Path
 
-        from solitons.userterms import load_user_term
+        from solitons.model.userterms import load_user_term
 
         copies = Path(__file__).parents[1] / "tests" / "user_copies.py"
         terms += tuple(Term(f"user {c.split(':')[0]}", load_user_term(copies, c.split(":")[0])[0],

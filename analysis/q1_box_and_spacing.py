@@ -13,12 +13,12 @@ import argparse
 import time
 
 import solitons  # noqa: F401  (enables float64)
-from solitons.energy import Model
-from solitons.grid import Grid
-from solitons.initial import hopf_map
-from solitons.minimise import StoppingRule, minimise
-from solitons.terms import BUILTIN_TERMS, Term
-from solitons.topology import hopf_charge
+from solitons.lattice.grid import Grid
+from solitons.measure.topology import hopf_charge
+from solitons.model.energy import Model
+from solitons.model.terms import BUILTIN_TERMS, Term
+from solitons.relaxation.initial import hopf_map
+from solitons.relaxation.minimise import StoppingRule, minimise
 
 TERMS = (Term("dirichlet", BUILTIN_TERMS["dirichlet"]),
          Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"]))

@@ -1,7 +1,7 @@
 """Energy error against grid points, uniform against stretched grids (Q = 1 of the
 Skyrme-Faddeev model, fourth-order scheme, fixed vacuum border, L-BFGS on the numba kernel).
 
-A stretched grid (solitons.grid: x = s sinh(xi / s) per axis) keeps the spacing h at the
+A stretched grid (solitons.lattice.grid: x = s sinh(xi / s) per axis) keeps the spacing h at the
 centre and reaches further out with the same number of points.  Every case relaxes the
 Hopf map (size 1) to max force < FORCE_TOL (Euler-Lagrange units) or a relative energy
 change below 1e-11 for 20 steps.  The reference energy is the continuum limit estimated
@@ -23,12 +23,12 @@ import time
 from pathlib import Path
 
 import solitons  # noqa: F401
-from solitons.energy import Model
-from solitons.grid import Grid
-from solitons.initial import hopf_map
-from solitons.minimise import StoppingRule, minimise
-from solitons.terms import BUILTIN_TERMS, Term
-from solitons.topology import hopf_charge
+from solitons.lattice.grid import Grid
+from solitons.measure.topology import hopf_charge
+from solitons.model.energy import Model
+from solitons.model.terms import BUILTIN_TERMS, Term
+from solitons.relaxation.initial import hopf_map
+from solitons.relaxation.minimise import StoppingRule, minimise
 
 FORCE_TOL = 2e-4
 HERE = Path(__file__).parent

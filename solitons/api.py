@@ -17,7 +17,7 @@ nothing (the defaults), and overrides as keyword arguments, one per table
 (``grid={"points": 48}``, ``terms={"mass": {"kind": "potential", "coupling": 0.5}}``).
 It writes files only when ``out`` is given; otherwise it relaxes in a temporary directory
 and keeps the result in memory.  Errors are the command's: `solitons.config.ConfigError`
-for bad input (naming key and value), `solitons.driver.RunError` when a run cannot start.
+for bad input (naming key and value), `solitons.run.RunError` when a run cannot start.
 """
 
 from __future__ import annotations
@@ -30,7 +30,7 @@ from typing import Any
 
 import numpy as np
 
-from solitons.grid import Grid
+from solitons.lattice.grid import Grid
 
 
 @dataclass(frozen=True)
@@ -85,7 +85,7 @@ class Result:
     def figures(self, level: float | None = None) -> dict[str, Any]:
         """The run's figures as matplotlib Figure objects (nothing is written): slices,
         isosurface (n3 = level, default -0.8), curves, history."""
-        from solitons import plots
+        from solitons.views import plots
 
         level = plots.DEFAULT_LEVEL if level is None else level
         meta = {"label": self.summary.get("label"), "hopf_charge": self.charge, "energy": self.energy,
@@ -100,7 +100,7 @@ class Result:
     def to_html(self, path: str | Path | None = None, level: float | None = None) -> str | Path:
         """The interactive 3D page of `solitons show --html` (self-contained, offline):
         written to ``path`` and the path returned, or the HTML text when ``path`` is None."""
-        from solitons import html_view, plots
+        from solitons.views import html_view, plots
 
         level = plots.DEFAULT_LEVEL if level is None else level
         if path is None:
@@ -136,7 +136,7 @@ class Result:
 def load(path: str | Path) -> Result:
     """A result written by `relax` or the command: ``path`` is a result.h5 file or the
     run directory holding one."""
-    from solitons.io import read_result
+    from solitons.io.results import read_result
 
     path = Path(path)
     if path.is_dir():
@@ -187,7 +187,7 @@ def relax(config: str | Path | dict | None = None, out: str | Path | None = None
     progress: print progress lines to stderr.  Keyword arguments override tables, e.g.
     ``grid={"points": 48}``, ``relax={"max_steps": 500}``,
     ``terms={"mass": {"kind": "potential", "coupling": 0.5}}``."""
-    from solitons.driver import relax as run
+    from solitons.run import relax as run
 
     spec = _spec(config, tables)
     stream = sys.stderr if progress else None
@@ -233,7 +233,7 @@ def _campaign_file(config, scratch: Path, name: str) -> Path:
 def _campaign(kind: str, config, out, scheduler, workers, progress, figures, tables):
     import pandas as pd
 
-    from solitons.io import check_output_dir
+    from solitons.io.results import check_output_dir
 
     stream = sys.stderr if progress else None
     overrides = _overrides(tables)
@@ -241,12 +241,12 @@ def _campaign(kind: str, config, out, scheduler, workers, progress, figures, tab
         path = _campaign_file(config, Path(scratch), kind)
         target = check_output_dir(out) if out is not None else Path(scratch) / "out"
         if kind == "scan":
-            from solitons.campaigns import run_scan
+            from solitons.campaigns.scan import run_scan
 
             rows = run_scan(path, target, overrides, stream=stream, figures=figures and out is not None,
                             scheduler=scheduler, workers=workers)
         else:
-            from solitons.charge_survey import run_survey
+            from solitons.campaigns.survey import run_survey
 
             rows = run_survey(path, target, overrides, scheduler=scheduler, workers=workers, stream=stream,
                               figure=figures and out is not None)
@@ -284,7 +284,7 @@ def survey(config, out: str | Path | None = None, *, scheduler: str | None = "in
 def gallery(results, level: float | None = None, columns: int = 4):
     """One matplotlib figure with the isosurface of every result (Result objects or
     paths), a shared phase colour bar, each panel zoomed to its soliton."""
-    from solitons import plots
+    from solitons.views import plots
 
     entries = []
     for item in results:

@@ -83,8 +83,8 @@ def demo_config_text() -> str:
 
 
 def _figures(out: Path, level=None, stream=None):
-    from solitons.io import read_result
-    from solitons.plots import DEFAULT_LEVEL, write_figures
+    from solitons.io.results import read_result
+    from solitons.views.plots import DEFAULT_LEVEL, write_figures
 
     paths = write_figures(read_result(out / "result.h5"), out,
                           DEFAULT_LEVEL if level is None else level)
@@ -133,8 +133,8 @@ def _run(args) -> int:
     # Imports after parsing so that --help answers without loading numba; a signal during
     # them is recorded and acted on after (some imports swallow a KeyboardInterrupt).
     with interrupts.deferred():
-        import solitons.campaigns  # noqa: F401  (the modules every command needs)
-        import solitons.driver  # noqa: F401
+        import solitons.campaigns.scan  # noqa: F401  (the modules every command needs)
+        import solitons.run  # noqa: F401
     interrupts.check()
 
     try:
@@ -152,15 +152,15 @@ def _campaign_dir(args):
 
 def _command(args) -> int:
     from solitons.config import ConfigError, load
-    from solitons.driver import RunError, relax, report
-    from solitons.io import OutputError, ResultFileError, check_output_dir
-    from solitons.outcomes import Outcome
-    from solitons.userterms import UserTermError
+    from solitons.io.results import OutputError, ResultFileError, check_output_dir
+    from solitons.judge.outcomes import Outcome
+    from solitons.model.userterms import UserTermError
+    from solitons.run import RunError, relax, report
 
     try:
         if args.command == "show":
-            from solitons.io import read_result
-            from solitons.plots import DEFAULT_LEVEL, write_figures
+            from solitons.io.results import read_result
+            from solitons.views.plots import DEFAULT_LEVEL, write_figures
 
             source = Path(args.result)
             if source.is_dir():
@@ -169,7 +169,7 @@ def _command(args) -> int:
             out = check_output_dir(Path(args.out) if args.out else source.parent)
             level = DEFAULT_LEVEL if args.level is None else args.level
             if args.html:
-                from solitons.html_view import write_view
+                from solitons.views.html_view import write_view
 
                 print(write_view(result, out / "view.html", level))
                 return EXIT_OK
@@ -177,8 +177,8 @@ def _command(args) -> int:
             print("\n".join(str(p) for p in paths))
             return EXIT_OK
         if args.command == "gallery":
-            from solitons.io import read_result
-            from solitons.plots import DEFAULT_LEVEL, plot_gallery
+            from solitons.io.results import read_result
+            from solitons.views.plots import DEFAULT_LEVEL, plot_gallery
 
             entries = []
             for path in args.results:
@@ -191,7 +191,7 @@ def _command(args) -> int:
             print(plot_gallery(entries, args.out, level=DEFAULT_LEVEL if args.level is None else args.level))
             return EXIT_OK
         if args.command == "scan":
-            from solitons.campaigns import format_table, read_scan_table, run_scan
+            from solitons.campaigns.scan import format_table, read_scan_table, run_scan
 
             out = check_output_dir(Path(args.out) if args.out else Path("runs") / Path(args.config).stem)
             rows = run_scan(args.config, out, args.overrides, stream=None if args.quiet else sys.stderr,
@@ -201,7 +201,7 @@ def _command(args) -> int:
             print(f"files         {out / 'scan.csv'}" + (f"  {out / 'scan.png'}" if args.figures else ""))
             return EXIT_OK
         if args.command == "survey":
-            from solitons.charge_survey import run_survey, summary_lines
+            from solitons.campaigns.survey import run_survey, summary_lines
 
             out = check_output_dir(Path(args.out) if args.out else Path("runs") / Path(args.config).stem)
             rows = run_survey(args.config, out, args.overrides, scheduler=args.scheduler, workers=args.workers,
@@ -213,7 +213,7 @@ def _command(args) -> int:
             failed = [r for r in rows if r["status"] == "failed" or (r["status"] != "finished" and not args.table_only)]
             return EXIT_UNCONVERGED if failed else EXIT_OK
         if args.command == "continuum":
-            from solitons.continuum import format_markdown, run_continuum
+            from solitons.campaigns.continuum import format_markdown, run_continuum
 
             out = check_output_dir(Path(args.out) if args.out else Path("runs") / Path(args.config).stem)
             report_ = run_continuum(args.config, out, args.overrides, stream=None if args.quiet else sys.stderr)

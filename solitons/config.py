@@ -16,11 +16,11 @@ from typing import Any
 
 import tomli_w
 
-from solitons.energy import BACKENDS, MIN_POINTS, SCHEMES
-from solitons.grid import BOUNDARIES
-from solitons.initial import FAMILIES, describe, expected_charge
-from solitons.minimise import METHODS, PRECONDITIONERS
-from solitons.terms import BUILTIN_TERMS
+from solitons.lattice.grid import BOUNDARIES
+from solitons.model.energy import BACKENDS, MIN_POINTS, SCHEMES
+from solitons.model.terms import BUILTIN_TERMS
+from solitons.relaxation.initial import FAMILIES, describe, expected_charge
+from solitons.relaxation.minimise import METHODS, PRECONDITIONERS
 
 DEFAULTS: dict[str, Any] = {
     # box of side 16 at h = 0.2: an empty configuration relaxes Q = 1 to E = 1.231867,
@@ -67,7 +67,7 @@ class GridSpec:
     boundary: str
     scheme: str
     stretch: tuple[float, float, float] = (0.0, 0.0, 0.0)
-    symmetry: str = "none"  # "axial": the half plane of solitons.axial, covering the same box
+    symmetry: str = "none"  # "axial": the half plane of solitons.axial.model, covering the same box
 
 
 @dataclass(frozen=True)
@@ -91,7 +91,7 @@ _PART_KEYS = ("family", "a", "b", "alpha", "beta", "factors", "size", "centre", 
 @dataclass(frozen=True)
 class InitialSpec:
     family: str
-    part: dict  # the family description read by solitons.initial.initial_field
+    part: dict  # the family description read by solitons.relaxation.initial.initial_field
     noise: float
     seed: int
 

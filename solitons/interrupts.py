@@ -52,6 +52,11 @@ def requested() -> int | None:
     return _pending[0] if _pending else None
 
 
+def stop_requested() -> bool:
+    """Whether a signal is waiting: the ``should_stop`` poll handed to the minimisers."""
+    return bool(_pending)
+
+
 def check() -> None:
     """Raise `Interrupted` if a signal is waiting."""
     if _pending:

@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 
 import solitons  # noqa: F401  (turns on float64)
-from solitons.energy import Model
-from solitons.grid import Grid
-from solitons.terms import BUILTIN_TERMS, Term
+from solitons.lattice.grid import Grid
+from solitons.model.energy import Model
+from solitons.model.terms import BUILTIN_TERMS, Term
 
 jax.config.update("jax_enable_x64", True)
 jax.config.update("jax_numpy_rank_promotion", "raise")
@@ -29,8 +29,8 @@ def numba_code_compiled_once():
     """Compile the numba routes (or load them from numba's disk cache) once, in this
     process, before any test starts worker processes or subprocesses: on a fresh install
     several processes otherwise compile the same kernels at the same time."""
-    from solitons.initial import hopf_map
-    from solitons.minimise import StoppingRule, minimise
+    from solitons.relaxation.initial import hopf_map
+    from solitons.relaxation.minimise import StoppingRule, minimise
 
     grid = Grid.centred(12, 0.5, "fixed")
     field = hopf_map(grid, 1.0)

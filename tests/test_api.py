@@ -29,8 +29,8 @@ def test_readme_example_runs_as_written(tmp_path, monkeypatch):
     assert set(namespace["figures"]) == {"slices", "isosurface", "curves", "history"}
     assert result.path is None and sorted(p.name for p in tmp_path.iterdir()) == ["isosurface.png"]
     # independent of the run's numba route: the field re-evaluated by jax autodiff's model
-    from solitons.driver import make_model
-    from solitons.energy import Model
+    from solitons.model.energy import Model
+    from solitons.run import make_model
 
     spec = solitons.api._spec(None, {"grid": {"points": 33, "spacing": 0.3},
                                      "terms": {"mass": {"kind": "potential", "coupling": 0.5}}})

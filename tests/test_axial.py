@@ -9,7 +9,7 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 
-from solitons.axial import (
+from solitons.axial.model import (
     AxialGrid,
     AxialModel,
     AxialTermError,
@@ -19,13 +19,13 @@ from solitons.axial import (
     term_energies,
     to_3d,
 )
-from solitons.energy import Model
-from solitons.grid import Grid
-from solitons.initial import axial_map
-from solitons.minimise import StoppingRule, minimise
-from solitons.terms import BUILTIN_TERMS, Term
-from solitons.topology import hopf_charge as hopf_charge_3d
-from solitons.userterms import load_user_term
+from solitons.lattice.grid import Grid
+from solitons.measure.topology import hopf_charge as hopf_charge_3d
+from solitons.model.energy import Model
+from solitons.model.terms import BUILTIN_TERMS, Term
+from solitons.model.userterms import load_user_term
+from solitons.relaxation.initial import axial_map
+from solitons.relaxation.minimise import StoppingRule, minimise
 
 PLAIN = (Term("dirichlet", BUILTIN_TERMS["dirichlet"], 1.0),
          Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"], 1.0))
@@ -105,7 +105,7 @@ def test_axial_maps_have_charge_a_times_b(a, b):
 
 def test_axial_charge_sign_agrees_with_the_whitehead_integral():
     """The same field carried onto a 3D grid (to_3d) has the same charge by the 3D
-    Whitehead integral of solitons.topology, sign included (A_{2,1}: Q = 2)."""
+    Whitehead integral of solitons.measure.topology, sign included (A_{2,1}: Q = 2)."""
     grid = AxialGrid.covering(4.0, 4.0, 0.05, winding=2)
     m = axial_initial(grid, 1, 1.2)
     grid3 = Grid.centred(64, 0.12, "fixed")
@@ -135,7 +135,7 @@ def test_terms_without_the_symmetry_are_refused():
     check_invariance((chiral,), 1)
     with pytest.raises(AxialTermError, match="chiral"):
         check_invariance((chiral,), 2)
-    from solitons.terms import TermKind
+    from solitons.model.terms import TermKind
 
     tilted = Term("tilted", TermKind("tilted", 0, "1 - n1", lambda n, d, lap=None: 1.0 - n[..., 0]), 1.0)
     with pytest.raises(AxialTermError, match="tilted"):

@@ -6,10 +6,11 @@ import numpy as np
 import pytest
 
 import solitons
-from solitons.axial import AxialModel, read_axial, to_3d
-from solitons.campaigns import run_scan
+from solitons.axial.model import AxialModel, to_3d
+from solitons.io.results import read_axial
+from solitons.campaigns.scan import run_scan
 from solitons.config import ConfigError, load
-from solitons.driver import RunError, make_grid, make_terms
+from solitons.run import RunError, make_grid, make_terms
 
 SMALL = {"grid": {"points": 51, "spacing": 0.2, "symmetry": "axial"},
          "relax": {"max_steps": 400}}
@@ -48,7 +49,7 @@ def test_axial_result_seeds_a_3d_run(axial_run, tmp_path):
     spec = load(None, ["grid.points=51", "grid.spacing=0.2", f"initial.file={path}", "initial.family=result",
                        "relax.max_steps=2"], text="")
     assert spec.initial.expected_charge == 1 and spec.initial.description == f"result({path.name})"
-    from solitons.driver import make_initial_field
+    from solitons.run import make_initial_field
 
     half = read_axial(path)
     np.testing.assert_allclose(make_initial_field(spec, make_grid(spec)),

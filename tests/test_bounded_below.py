@@ -10,12 +10,12 @@ import numpy as np
 import pytest
 from fields import random_rotation
 
-from solitons.energy import Model
-from solitons.grid import Grid
-from solitons.terms import BUILTIN_TERMS, Term
+from solitons.lattice.grid import Grid
+from solitons.model.energy import Model
+from solitons.model.terms import BUILTIN_TERMS, Term
 
 # densities that are >= 0 for every (n, d n, lap) (derived from their formulas in
-# solitons/terms.py: sums of squares, H^2 = |a|^2 |b|^2 - (a.b)^2 >= 0, products of these,
+# solitons/model/terms.py: sums of squares, H^2 = |a|^2 |b|^2 - (a.b)^2 >= 0, products of these,
 # and mass^2 (1 - n3)^power with the clamp at 0)
 NON_NEGATIVE = ("dirichlet", "skyrme_faddeev", "dirichlet_squared", "strain_squared", "potential",
                 "laplacian_squared", "sextic")

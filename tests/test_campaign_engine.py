@@ -9,8 +9,8 @@ import sys
 import cloudpickle
 import pytest
 
-from solitons import catalogue
-from solitons.engine import execute, make_task, run_tasks
+from solitons.campaigns import catalogue
+from solitons.campaigns.engine import execute, make_task, run_tasks
 
 ROWS_PER_TASK = 10
 
@@ -19,7 +19,7 @@ def write_rows(task):
     """A task that records ROWS_PER_TASK rows of its own, as fast as it can."""
     import os
 
-    from solitons import catalogue as cat
+    from solitons.campaigns import catalogue as cat
 
     for k in range(ROWS_PER_TASK):
         cat.record(f"{task['root']}/{cat.CATALOGUE}", {
@@ -56,7 +56,7 @@ def record_start(task):
     """A task that records when it started."""
     import time
 
-    from solitons import catalogue as cat
+    from solitons.campaigns import catalogue as cat
 
     cat.record(f"{task['root']}/{cat.CATALOGUE}", {"task": task["task"], "status": "finished",
                                                    "energy": float(time.time_ns())})
@@ -101,9 +101,9 @@ def test_an_interrupted_task_continues_from_its_checkpoint(tmp_path):
     """A campaign killed mid-run leaves checkpoint.h5; the rerun of that task continues the
     step count instead of starting again (mechanics)."""
     from solitons.config import load
-    from solitons.driver import make_grid, make_initial_field
-    from solitons.io import write_checkpoint
-    from solitons.minimise import History
+    from solitons.io.results import write_checkpoint
+    from solitons.relaxation.minimise import History
+    from solitons.run import make_grid, make_initial_field
 
     spec = load(None, text=GOOD)
     grid = make_grid(spec)

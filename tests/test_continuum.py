@@ -9,9 +9,9 @@ from pathlib import Path
 
 import pytest
 
+from solitons.campaigns.continuum import read_continuum_table
 from solitons.config import ConfigError
-from solitons.continuum import read_continuum_table
-from solitons.extrapolation import fit_power_limit
+from solitons.measure.extrapolation import fit_power_limit
 
 SPACINGS = [0.2, 0.16, 0.125, 0.1]
 
@@ -110,7 +110,7 @@ def test_scan_points_carry_their_continuum_limits(tmp_path):
     with its error bar per point; the limit lies below every level's energy (the
     sixth-order scheme errs upwards, README), and a rerun skips the finished points.  The
     mass term raises the energy (a non-negative density added, derived)."""
-    from solitons.campaigns import run_scan
+    from solitons.campaigns.scan import run_scan
 
     config = tmp_path / "scan.toml"
     config.write_text("[grid]\npoints = 25\nspacing = 0.4\nstretch = 2.0\n"
@@ -134,7 +134,7 @@ def test_continuum_with_continuation_is_refused(tmp_path):
     config = tmp_path / "scan.toml"
     config.write_text("[scan]\nparameter = \"terms.dirichlet.coupling\"\nvalues = [1.0]\ncontinuation = true\n"
                       "continuum = [0.3, 0.2, 0.1]\n")
-    from solitons.campaigns import read_scan_table
+    from solitons.campaigns.scan import read_scan_table
 
     with pytest.raises(ConfigError, match="scan.continuum"):
         read_scan_table(config)
@@ -143,7 +143,7 @@ def test_continuum_with_continuation_is_refused(tmp_path):
 def test_survey_runs_carry_their_continuum_limits(tmp_path):
     """A survey with `continuum = [...]` runs every task as a continuum command: the table
     gains E_inf below every level's energy (the sixth-order scheme errs upwards, README)."""
-    from solitons.charge_survey import run_survey
+    from solitons.campaigns.survey import run_survey
 
     config = tmp_path / "survey.toml"
     config.write_text("[grid]\npoints = 25\nspacing = 0.4\nstretch = 2.0\n"

@@ -3,16 +3,16 @@
 import numpy as np
 import pytest
 
-from solitons.curves import curve_length, linking_number, preimage_chains, projection_crossings
-from solitons.grid import Grid
-from solitons.initial import axial_map, hopf_map
+from solitons.lattice.grid import Grid
+from solitons.measure.curves import curve_length, linking_number, preimage_chains, projection_crossings
+from solitons.relaxation.initial import axial_map, hopf_map
 
 GRID = Grid.centred(64, 0.125, "fixed")
 
 
 def test_hopf_map_position_curve_is_the_unit_circle():
     """The Hopf map's preimage of -e3 is Z0 = 0: the circle r = size in the plane z = 0
-    (derived from the map in solitons.initial)."""
+    (derived from the map in solitons.relaxation.initial)."""
     chains = preimage_chains(hopf_map(GRID, 1.0), GRID)
     assert len(chains) == 1 and chains[0][1]
     points = chains[0][0]

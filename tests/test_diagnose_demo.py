@@ -6,9 +6,9 @@ import sys
 
 import numpy as np
 
-from solitons.diagnose import assess, boundary_energy_fraction, core_thickness
-from solitons.grid import Grid
-from solitons.initial import hopf_map
+from solitons.judge.diagnose import assess, boundary_energy_fraction, core_thickness
+from solitons.lattice.grid import Grid
+from solitons.relaxation.initial import hopf_map
 
 GRID = Grid.centred(33, 0.25, "fixed")
 

@@ -6,9 +6,9 @@ import pytest
 from conftest import skyrme_faddeev_model
 from fields import random_rotation
 
-from solitons.energy import normalise
-from solitons.grid import Grid
-from solitons.initial import add_noise, hopf_map
+from solitons.lattice.grid import Grid
+from solitons.model.energy import normalise
+from solitons.relaxation.initial import add_noise, hopf_map
 
 
 def perturbed_hopf(grid, seed=3):

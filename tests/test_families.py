@@ -4,10 +4,10 @@ formula, placement, orientation, noise."""
 import numpy as np
 import pytest
 
-from solitons.curves import preimage_chains
-from solitons.grid import Grid
-from solitons.initial import add_noise, euler_rotation, expected_charge, initial_field
-from solitons.topology import hopf_charge
+from solitons.lattice.grid import Grid
+from solitons.measure.curves import preimage_chains
+from solitons.measure.topology import hopf_charge
+from solitons.relaxation.initial import add_noise, euler_rotation, expected_charge, initial_field
 
 # 96^3, h = 0.125 (box side 11.9), fixed border: fine enough for the knot maps at size 1.5
 # (a (3, 2) knot map at size 1 reads only 4.2 at 128^3, docs/references.md [R6]).
@@ -22,7 +22,7 @@ FAMILIES = [
     ({"family": "torus_knot", "alpha": 1, "beta": 1, "a": 3, "b": 2}, 5),
     ({"family": "torus_knot", "alpha": 2, "beta": 1, "a": 3, "b": 2}, 7),
     ({"family": "torus_knot", "alpha": 1, "beta": 2, "a": 2, "b": 3}, 7),
-    # derived (solitons.initial docstring): links, Q = sum_k (alpha b_k + beta a_k)
+    # derived (solitons.relaxation.initial docstring): links, Q = sum_k (alpha b_k + beta a_k)
     ({"family": "rational", "alpha": 1, "beta": 1, "factors": [(1, 1, 1.0), (1, 1, -1.0)]}, 4),
     ({"family": "rational", "alpha": 1, "beta": 1, "factors": [(1, 1, 1.0), (1, 2, -1.0)]}, 5),
     ({"family": "rational", "alpha": 1, "beta": 1, "factors": [(1, 2, 1.0), (1, 2, -1.0)]}, 6),
@@ -81,7 +81,7 @@ def test_noise_is_seeded_and_keeps_unit_length():
 def test_builtin_survey_families_reach_charge_16():
     """The built-in survey list has families for every Q = 1..16, each with the charge its
     formula gives (Sutcliffe 2007, as above)."""
-    from solitons.charge_survey import DEFAULT_FAMILIES
+    from solitons.campaigns.survey import DEFAULT_FAMILIES
 
     assert {expected_charge(f) for f in DEFAULT_FAMILIES} == set(range(1, 17))
 
@@ -95,7 +95,7 @@ def test_builtin_families_carry_their_charge_at_the_survey_spacing():
     (3,1;3,2) map read 8.0 of 9 and relaxed to a Q = 9.0000 trefoil); the torus-knot maps
     with large numerator powers need size / h of 20-25 (measured: (5,2;3,2) 6.03, 9.66,
     12.3, 14.3 for 16 at size / h = 12, 16, 20, 25), so the list leaves them out."""
-    from solitons.charge_survey import DEFAULT_FAMILIES
+    from solitons.campaigns.survey import DEFAULT_FAMILIES
 
     for family in DEFAULT_FAMILIES:
         charge = expected_charge(family)

@@ -10,11 +10,11 @@ import numpy as np
 import pytest
 
 from solitons.config import load
-from solitons.driver import relax
-from solitons.grid import Grid
-from solitons.initial import axial_map
-from solitons.io import read_result
-from solitons.plots import euler_characteristic, isosurface_mesh, write_figures
+from solitons.io.results import read_result
+from solitons.lattice.grid import Grid
+from solitons.relaxation.initial import axial_map
+from solitons.run import relax
+from solitons.views.plots import euler_characteristic, isosurface_mesh, write_figures
 
 SIZES = {"slices.png": (880, 1430), "isosurface.png": (825, 880), "curves.png": (748, 1430),
          "history.png": (880, 1320)}  # (height, width) = figsize * 110 dpi
@@ -114,12 +114,12 @@ def test_xdmf_sidecar_names_existing_datasets(relaxed):
 
 def test_results_without_a_model_entry_get_it_from_their_config(relaxed, tmp_path):
     """Results written before the summary named the model: the figures' titles read it
-    from the stored configuration, in the driver's wording (solitons.driver.describe_model)."""
+    from the stored configuration, in the driver's wording (solitons.run.describe_model)."""
     import json
     import shutil
 
-    from solitons.driver import describe_model, make_model
-    from solitons.io import model_from_config
+    from solitons.io.results import model_from_config
+    from solitons.run import describe_model, make_model
 
     result = read_result(relaxed / "result.h5")
     spec = load(None, [], text=result["config"])

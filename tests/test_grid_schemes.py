@@ -7,9 +7,9 @@ from conftest import SKYRME_FADDEEV, skyrme_faddeev_model
 from fields import twisted_field
 from scipy.integrate import quad
 
-from solitons.energy import NORMALISATION, term_energies
-from solitons.grid import Grid
-from solitons.initial import add_noise, hopf_map
+from solitons.lattice.grid import Grid
+from solitons.model.energy import NORMALISATION, term_energies
+from solitons.relaxation.initial import add_noise, hopf_map
 
 
 def continuum_twisted_energies(amplitude, k, side):

@@ -16,10 +16,10 @@ import pytest
 
 from solitons.cli import main
 from solitons.config import load
-from solitons.driver import relax
-from solitons.html_view import view_html
-from solitons.io import read_result
-from solitons.plots import isosurface_mesh
+from solitons.io.results import read_result
+from solitons.run import relax
+from solitons.views.html_view import view_html
+from solitons.views.plots import isosurface_mesh
 
 # The flags the machine notes give for headless Chromium as root in a closed network
 # (common practice), plus SwiftShader so that WebGL draws without a GPU.
@@ -79,8 +79,8 @@ def test_page_is_self_contained_and_carries_the_run(page_file):
 
 def test_page_escapes_text_from_the_run():
     """A label or model text is data, not markup."""
-    from solitons.grid import Grid
-    from solitons.initial import hopf_map
+    from solitons.lattice.grid import Grid
+    from solitons.relaxation.initial import hopf_map
 
     grid = Grid.centred(21, 0.4, "fixed")
     summary = {"label": "<b>x</b>", "model": "a & <script>", "energy": 1.0, "hopf_charge": 1.0,

@@ -11,10 +11,10 @@ import numpy as np
 import pytest
 
 from solitons.config import load
-from solitons.driver import relax
-from solitons.grid import Grid
-from solitons.io import read_checkpoint, read_result, write_checkpoint, write_result
-from solitons.minimise import History
+from solitons.io.results import read_checkpoint, read_result, write_checkpoint, write_result
+from solitons.lattice.grid import Grid
+from solitons.relaxation.minimise import History
+from solitons.run import relax
 
 SMALL = """
 [grid]
@@ -76,8 +76,8 @@ def test_cli_smoke_run(tmp_path):
     assert summary["verdict"] == "not converged"
     assert abs(summary["hopf_charge"] - 1) < 1e-3
     # the stored field, evaluated again on the jax reference route (not the run's numba kernel)
-    from solitons.driver import make_model
-    from solitons.energy import Model
+    from solitons.model.energy import Model
+    from solitons.run import make_model
 
     spec = load(config, ["relax.max_steps=30"])
     kernel_model = make_model(spec, read_result(out / "result.h5")["grid"])
@@ -143,7 +143,7 @@ def test_interrupted_run_resumes_exactly(tmp_path, method):
     other = load(None, text=text + "", overrides=["grid.spacing=0.21"])
     with interrupts.handling(), pytest.raises(interrupts.Interrupted):
         relax(spec, out, overwrite=True, stream=_SignalAtStep(3))
-    from solitons.driver import RunError
+    from solitons.run import RunError
     with pytest.raises(RunError, match="different configuration"):
         relax(other, out, resume=True, stream=None)
 
@@ -182,7 +182,7 @@ def test_grid_too_large_for_memory_is_refused_before_any_output(tmp_path):
 
 
 def test_summary_json_is_strict(tmp_path):
-    from solitons.io import write_json
+    from solitons.io.results import write_json
 
     write_json(tmp_path / "s.json", {"a": float("inf"), "b": [float("nan"), 1.0]})
     assert json.loads((tmp_path / "s.json").read_text()) == {"a": None, "b": [None, 1.0]}

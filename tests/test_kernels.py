@@ -10,11 +10,11 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 
-from solitons.energy import Model
-from solitons.grid import Grid
-from solitons.initial import add_noise, hopf_map
-from solitons.minimise import StoppingRule, minimise
-from solitons.terms import BUILTIN_TERMS, Term
+from solitons.lattice.grid import Grid
+from solitons.model.energy import Model
+from solitons.model.terms import BUILTIN_TERMS, Term
+from solitons.relaxation.initial import add_noise, hopf_map
+from solitons.relaxation.minimise import StoppingRule, minimise
 
 
 def model_pair(grid, scheme, c2=1.3, c4=0.7):
@@ -80,7 +80,7 @@ def test_coarse_start_reaches_the_same_minimum(tmp_path):
     49^3, h = 0.125 (coarse 25^3, h = 0.25); coarse grids of h = 0.3 and 0.4 unwind the
     soliton and are discarded with a warning (measured)."""
     from solitons.config import load
-    from solitons.driver import relax
+    from solitons.run import relax
 
     text = """[grid]
 points = 49
@@ -107,11 +107,11 @@ SHARDED = """
 import json, sys
 import jax, jax.numpy as jnp, numpy as np
 import solitons
-from solitons.energy import Model
-from solitons.grid import Grid
-from solitons.initial import add_noise, hopf_map
-from solitons.sharding import device_mesh, shard_field
-from solitons.terms import BUILTIN_TERMS, Term
+from solitons.model.energy import Model
+from solitons.lattice.grid import Grid
+from solitons.relaxation.initial import add_noise, hopf_map
+from solitons.model.routes.sharding import device_mesh, shard_field
+from solitons.model.terms import BUILTIN_TERMS, Term
 terms = (Term("dirichlet", BUILTIN_TERMS["dirichlet"]), Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"]))
 grid = Grid.centred(24, 0.3, "fixed")
 model = Model(terms, grid, "fourth", "jax")

@@ -4,9 +4,9 @@ import numpy as np
 import pytest
 from numpy.polynomial import polynomial as P
 
-from solitons.grid import Grid
-from solitons.initial import initial_field
-from solitons.knots import alexander_from_hfk, alexander_text, knot_type, solution_label
+from solitons.lattice.grid import Grid
+from solitons.measure.knots import alexander_from_hfk, alexander_text, knot_type, solution_label
+from solitons.relaxation.initial import initial_field
 
 T = np.linspace(0, 2 * np.pi, 500, endpoint=False)
 
@@ -111,10 +111,10 @@ def test_relaxed_solutions_carry_the_literature_classes(part, points, label):
     Q = 4 solution A_{2,2}); the Q = 5 trefoil map relaxes to a link of two unknots with
     shares 2 and 3 (Harland, Speight & Sutcliffe, arXiv:1010.3189, abstract: links at
     Q = 5 and 6).  Measured deviations from axial symmetry: 0.011 and 0.27."""
-    from solitons.energy import Model
-    from solitons.initial import add_noise
-    from solitons.minimise import StoppingRule, minimise
-    from solitons.terms import BUILTIN_TERMS, Term
+    from solitons.model.energy import Model
+    from solitons.model.terms import BUILTIN_TERMS, Term
+    from solitons.relaxation.initial import add_noise
+    from solitons.relaxation.minimise import StoppingRule, minimise
 
     grid = Grid.centred(points, 0.2, "fixed")
     model = Model((Term("dirichlet", BUILTIN_TERMS["dirichlet"]),

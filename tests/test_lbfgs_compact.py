@@ -1,4 +1,4 @@
-"""The compact L-BFGS direction of solitons.fieldops against the two-loop recursion.
+"""The compact L-BFGS direction of solitons.lattice.fieldops against the two-loop recursion.
 
 The compact form (Byrd, Nocedal & Schnabel, Math. Prog. 63 (1994) 129, eq. 3.13; Nocedal &
 Wright, Numerical Optimization, 2nd ed., eq. 7.24) and the two-loop recursion (Nocedal &
@@ -9,7 +9,7 @@ including the preconditioned initial matrix H0 = gamma W, gamma = s.y / (y . W y
 import numpy as np
 import pytest
 
-from solitons import fieldops
+from solitons.lattice import fieldops
 
 
 def two_loop_reference(gradient, pairs, weights):

@@ -4,12 +4,12 @@ import jax.numpy as jnp
 import numpy as np
 from conftest import skyrme_faddeev_model
 
-from solitons.energy import Model
-from solitons.grid import Grid
-from solitons.initial import add_noise, hopf_map
-from solitons.minimise import StoppingRule, minimise
-from solitons.outcomes import Outcome
-from solitons.terms import Term, TermKind
+from solitons.judge.outcomes import Outcome
+from solitons.lattice.grid import Grid
+from solitons.model.energy import Model
+from solitons.model.terms import Term, TermKind
+from solitons.relaxation.initial import add_noise, hopf_map
+from solitons.relaxation.minimise import StoppingRule, minimise
 
 # Side 8, h = 0.2: Q = 1 stays wound here (measured: at h = 0.25 in a box of side 7.75
 # the squeezed soliton slips through the lattice and unwinds).

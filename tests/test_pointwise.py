@@ -1,5 +1,5 @@
-"""The compiled pointwise route for user terms (`solitons.scalar_codegen`,
-`solitons.pointwise`) against jax itself (a general-purpose reference library): the
+"""The compiled pointwise route for user terms (`solitons.model.routes.scalar_codegen`,
+`solitons.model.routes.pointwise`) against jax itself (a general-purpose reference library): the
 translated statements must compute jax's value and gradient of the density to rounding
 (1e-13 relative; derived: the same operations, in an order that differs only by
 reassociation), and a density the translator cannot read must fall back to jax with the
@@ -14,13 +14,13 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 
-from solitons import pointwise, scalar_codegen
-from solitons.energy import Model
-from solitons.grid import Grid
-from solitons.initial import add_noise, hopf_map
-from solitons.routes import Autodiff
-from solitons.terms import BUILTIN_TERMS, Term, TermKind, field_strength, h_squared, strain
-from solitons.userterms import load_user_term
+from solitons.lattice.grid import Grid
+from solitons.model.energy import Model
+from solitons.model.routes import pointwise, scalar_codegen
+from solitons.model.routes.evaluators import Autodiff
+from solitons.model.terms import BUILTIN_TERMS, Term, TermKind, field_strength, h_squared, strain
+from solitons.model.userterms import load_user_term
+from solitons.relaxation.initial import add_noise, hopf_map
 
 COPIES = Path(__file__).with_name("user_copies.py")  # user-file copies of log_quartic and sextic
 

@@ -1,4 +1,4 @@
-"""The shifted-Laplacian preconditioner of L-BFGS (solitons.preconditioner).
+"""The shifted-Laplacian preconditioner of L-BFGS (solitons.lattice.preconditioner).
 
 Checks against exact results: W inverts the 7-point lattice Laplacian plus shift (written
 out independently below) wherever the transform length needs no padding; W is symmetric
@@ -15,11 +15,11 @@ import pytest
 from conftest import skyrme_faddeev_model
 from test_lbfgs_compact import project
 
-from solitons import fieldops
-from solitons.grid import Grid
-from solitons.initial import add_noise, hopf_map
-from solitons.minimise import StoppingRule, minimise
-from solitons.preconditioner import LaplacianPreconditioner
+from solitons.lattice import fieldops
+from solitons.lattice.grid import Grid
+from solitons.lattice.preconditioner import LaplacianPreconditioner
+from solitons.relaxation.initial import add_noise, hopf_map
+from solitons.relaxation.minimise import StoppingRule, minimise
 
 FLOAT32_TOLERANCE = 2e-5  # the transforms run in float32
 

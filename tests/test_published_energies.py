@@ -3,7 +3,7 @@
 import pytest
 
 from solitons.config import load
-from solitons.driver import relax
+from solitons.run import relax
 
 pytestmark = pytest.mark.slow
 

@@ -11,7 +11,7 @@ import pytest
 
 from solitons.cli import main
 from solitons.config import ConfigError, load
-from solitons.io import FILE_MODE, stale_temporaries
+from solitons.io.results import FILE_MODE, stale_temporaries
 
 TINY = """
 [grid]
@@ -86,7 +86,7 @@ def test_stretched_box_reach_is_used_for_the_placement_check():
 
 
 def test_user_term_not_zero_in_the_vacuum_is_refused(tmp_path):
-    from solitons.userterms import UserTermError, load_user_term
+    from solitons.model.userterms import UserTermError, load_user_term
 
     path = tmp_path / "offset.py"
     path.write_text("import jax.numpy as jnp\n\ndef density(n, d, lap=None):\n"
@@ -98,10 +98,10 @@ def test_user_term_not_zero_in_the_vacuum_is_refused(tmp_path):
 def test_non_finite_start_names_the_term_and_site_and_writes_nothing(tmp_path):
     """A term finite on the random local fields of the load check but overflowing on the
     steep initial data: the run stops before the first step, naming the term and a site."""
-    from solitons.driver import RunError, relax
+    from solitons.run import RunError, relax
 
     path = tmp_path / "steep.py"
-    path.write_text("import jax.numpy as jnp\nfrom solitons.terms import dirichlet_sum\n\n"
+    path.write_text("import jax.numpy as jnp\nfrom solitons.model.terms import dirichlet_sum\n\n"
                     "def density(n, d, lap=None):\n    return jnp.expm1(0.5 * dirichlet_sum(d) ** 2)\n")
     text = TINY + f'[terms.steep]\nkind = "user"\nfile = "{path}"\ncoupling = 1e-3\n' \
         "[initial]\nsize = 0.3\n"

@@ -1,5 +1,5 @@
-"""The numba routes for corrected models (`solitons.staged`, `solitons.routes`) against
-jax autodiff of the literal eight-octant site sum (`solitons.energy.term_energies`), the
+"""The numba routes for corrected models (`solitons.model.routes.staged`, `solitons.model.routes.evaluators`) against
+jax autodiff of the literal eight-octant site sum (`solitons.model.energy.term_energies`), the
 reference: the same lattice energy, so every quantity agrees to rounding (1e-12
 relative; derived).  Plus checks that do not go through jax: a directional finite
 difference, a user-file copy of a built-in term, numpy's log."""
@@ -11,13 +11,13 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 
-from solitons.energy import Model, normalise, project_tangent
-from solitons.grid import Grid
-from solitons.initial import add_noise, hopf_map
-from solitons.routes import Autodiff, PlainKernel, StagedKernel
-from solitons.staged import EXTRA_KINDS, vector_log
-from solitons.terms import BUILTIN_TERMS, Term
-from solitons.userterms import load_user_term
+from solitons.lattice.grid import Grid
+from solitons.model.energy import Model, normalise, project_tangent
+from solitons.model.routes.evaluators import Autodiff, PlainKernel, StagedKernel
+from solitons.model.routes.staged import EXTRA_KINDS, vector_log
+from solitons.model.terms import BUILTIN_TERMS, Term
+from solitons.model.userterms import load_user_term
+from solitons.relaxation.initial import add_noise, hopf_map
 
 BASE = (Term("dirichlet", BUILTIN_TERMS["dirichlet"], 1.3), Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"], 0.7))
 COUPLINGS = {"dirichlet_squared": 0.3, "strain_squared": 0.2, "potential": 0.5, "laplacian_squared": 0.1,

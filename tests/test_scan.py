@@ -10,7 +10,7 @@ import sys
 import matplotlib.image
 import pytest
 
-from solitons.campaigns import read_scan_table, run_scan
+from solitons.campaigns.scan import read_scan_table, run_scan
 from solitons.config import ConfigError
 
 SCAN = """

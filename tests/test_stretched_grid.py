@@ -1,4 +1,4 @@
-"""Stretched-coordinate grids (solitons.grid, x = s sinh(xi / s) per axis): the metric
+"""Stretched-coordinate grids (solitons.lattice.grid, x = s sinh(xi / s) per axis): the metric
 factors against independent routes, convergence with the spacing, coordinate invariance of
 the charge and the curves, and the run path end to end."""
 
@@ -13,13 +13,13 @@ import pytest
 from conftest import SKYRME_FADDEEV
 
 from solitons.config import ConfigError, load
-from solitons.energy import Model, normalise
-from solitons.grid import STENCILS, Grid
-from solitons.initial import add_noise, hopf_map, interpolate_field
-from solitons.io import read_result
-from solitons.knots import solution_label
-from solitons.minimise import StoppingRule, minimise
-from solitons.topology import hopf_charge
+from solitons.io.results import read_result
+from solitons.lattice.grid import STENCILS, Grid
+from solitons.measure.knots import solution_label
+from solitons.measure.topology import hopf_charge
+from solitons.model.energy import Model, normalise
+from solitons.relaxation.initial import add_noise, hopf_map, interpolate_field
+from solitons.relaxation.minimise import StoppingRule, minimise
 
 
 def gaussian_field(grid: Grid) -> np.ndarray:
@@ -74,7 +74,7 @@ def test_kernel_matches_jax_on_a_stretched_grid(scheme):
 def test_stretched_gradient_matches_finite_difference(rng):
     """Directional derivative of the discrete energy by central differences (common
     practice) against the autodiff gradient, with a Laplacian term on the jax route."""
-    from solitons.terms import BUILTIN_TERMS, Term
+    from solitons.model.terms import BUILTIN_TERMS, Term
 
     terms = SKYRME_FADDEEV + (Term("laplacian_squared", BUILTIN_TERMS["laplacian_squared"], 0.3),)
     grid = Grid.centred(18, 0.35, "fixed", 1.5)
@@ -210,8 +210,8 @@ def test_stretched_run_end_to_end(tmp_path):
 def test_monitor_diagnostics_equal_their_definitions(boundary, stretch):
     """The single-pass core thickness and marginal-based size equal the definitions written
     out with the lattice's forward differences and the coordinate mesh (exact identities)."""
-    from solitons.diagnose import core_thickness, energy_size
-    from solitons.grid import grid_differences, pad
+    from solitons.judge.diagnose import core_thickness, energy_size
+    from solitons.lattice.grid import grid_differences, pad
 
     grid = Grid.centred((20, 22, 24), (0.3, 0.25, 0.28), boundary, stretch)
     field = add_noise(hopf_map(grid, 1.3, (0.3, -0.2, 0.1)), grid, 0.1, 2)
@@ -230,7 +230,7 @@ def test_monitor_charge_on_every_second_site():
     """At h = 0.0625 the monitor reads Q from every second site; for the Hopf map it agrees
     with the full-resolution Whitehead integral to 1e-4 (spectral accuracy; measured 2e-8
     at 128^3)."""
-    from solitons.driver import monitor_charge
+    from solitons.run import monitor_charge
 
     grid = Grid.centred(97, 0.0625, "fixed")
     field = hopf_map(grid, 0.8)
@@ -247,7 +247,7 @@ def test_off_centre_soliton_moves_to_the_fine_cells_and_keeps_its_charge():
     origin after 400 steps, Q = 1.0000001).  The second-order scheme errs downwards: the
     same start slides into the coarse cells and unwinds (measured: Q = 0 after 49 steps),
     as reported for the former schemes on 49^3, h = 0.25."""
-    from solitons.diagnose import _energy_per_site
+    from solitons.judge.diagnose import _energy_per_site
 
     grid = Grid.centred(33, 0.3, "fixed", 2.0)
     start = add_noise(hopf_map(grid, 1.0, (0.6, 0.3, 0.0)), grid, 0.05, 4)
@@ -272,7 +272,7 @@ def test_laplacian_term_scales_with_derrick_weight_on_a_stretched_grid(backend):
     virial sum_a h_a dE/dh_a / E is -1 to rounding (Derrick, J. Math. Phys. 5 (1964)
     1252).  On a stretched axis x''/x' is an inverse length; held fixed (as before
     this test), the virial read -1.0023 here on both routes (measured)."""
-    from solitons.terms import BUILTIN_TERMS, Term
+    from solitons.model.terms import BUILTIN_TERMS, Term
 
     terms = (Term("laplacian_squared", BUILTIN_TERMS["laplacian_squared"], 1.0),)
     grid = Grid.centred(24, 0.3, "fixed", (1.5, 2.0, 0.0))

@@ -7,8 +7,8 @@ import csv
 import matplotlib.image
 import pytest
 
-from solitons import catalogue
-from solitons.charge_survey import grid_text, read_survey
+from solitons.campaigns import catalogue
+from solitons.campaigns.survey import grid_text, read_survey
 from solitons.cli import main
 from solitons.config import ConfigError
 

@@ -6,10 +6,10 @@ import jax.numpy as jnp
 import numpy as np
 import pytest
 
-from solitons.energy import Model, normalise, term_energies
-from solitons.grid import Grid
-from solitons.initial import add_noise, hopf_map
-from solitons.terms import BUILTIN_TERMS, Term, quartic_bound
+from solitons.lattice.grid import Grid
+from solitons.model.energy import Model, normalise, term_energies
+from solitons.model.terms import BUILTIN_TERMS, Term, quartic_bound
+from solitons.relaxation.initial import add_noise, hopf_map
 
 KINDS = sorted(BUILTIN_TERMS)
 
@@ -102,7 +102,7 @@ def test_quartic_bound(a, b, bounded):
 def test_field_strength_helper_matches_h_squared(rng):
     """F_ij = n . (d_i n x d_j n) is antisymmetric and sum_{i<j} F_ij^2 = H^2 when the
     derivatives are tangent to the sphere (derived: d_i n x d_j n is parallel to n)."""
-    from solitons.terms import field_strength, h_squared
+    from solitons.model.terms import field_strength, h_squared
 
     n = rng.standard_normal((50, 3))
     n /= np.linalg.norm(n, axis=-1, keepdims=True)

@@ -3,9 +3,9 @@
 import numpy as np
 import pytest
 
-from solitons.grid import Grid
-from solitons.initial import axial_map, hopf_map
-from solitons.topology import coulomb_potential, hopf_charge, topological_field
+from solitons.lattice.grid import Grid
+from solitons.measure.topology import coulomb_potential, hopf_charge, topological_field
+from solitons.relaxation.initial import axial_map, hopf_map
 
 GRID = Grid.centred(64, 0.125, "fixed")  # box side 7.875, the stated grid for these checks
 

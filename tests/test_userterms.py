@@ -8,16 +8,16 @@ import numpy as np
 import pytest
 
 from solitons.config import load
-from solitons.driver import make_model
-from solitons.energy import Model
-from solitons.grid import Grid
-from solitons.initial import add_noise, hopf_map
-from solitons.terms import BUILTIN_TERMS, Term
-from solitons.userterms import UserTermError, load_user_term
+from solitons.lattice.grid import Grid
+from solitons.model.energy import Model
+from solitons.model.terms import BUILTIN_TERMS, Term
+from solitons.model.userterms import UserTermError, load_user_term
+from solitons.relaxation.initial import add_noise, hopf_map
+from solitons.run import make_model
 
 COPY = '''
 import jax.numpy as jnp
-from solitons.terms import h_squared, strain
+from solitons.model.terms import h_squared, strain
 
 def quartic(n, d, lap=None):
     # written from the strain matrix: H^2 = (tr D^2 - tr(D^2)) / 2 for a unit field

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from solitons.config import load
-from solitons.driver import relax
+from solitons.run import relax
 
 BASE = ["grid.points=41", "grid.spacing=0.2", "relax.checkpoint_every=0"]
 
@@ -65,9 +65,9 @@ def test_quartic_combination_outside_the_bound_is_never_stable(tmp_path, b):
     every site exactly, so E = N V (k_h^2 + b k_h^4) (N the normalisation, V the box
     volume): negative once k_h^2 > 1/|b| and without lower bound as k grows.  The model
     must evaluate exactly that, and no relaxation of the model may be called stable."""
-    from solitons.energy import NORMALISATION, Model
-    from solitons.grid import Grid
-    from solitons.terms import BUILTIN_TERMS, Term
+    from solitons.lattice.grid import Grid
+    from solitons.model.energy import NORMALISATION, Model
+    from solitons.model.terms import BUILTIN_TERMS, Term
 
     grid = Grid.centred(32, 0.05, "periodic")
     terms = (Term("dirichlet", BUILTIN_TERMS["dirichlet"]), Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"]),

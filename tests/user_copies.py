@@ -1,11 +1,11 @@
-"""User-file copies of three built-in terms (the densities of `solitons.terms`, written as a
+"""User-file copies of three built-in terms (the densities of `solitons.model.terms`, written as a
 user would write them).  Loaded by tests/test_routes.py, which checks them against the
 built-in row functions, and by analysis/bench_energy.py and analysis/bench_memory.py, which
 time them and measure their memory (laplacian_squared: load it with laplacian=True)."""
 
 import jax.numpy as jnp
 
-from solitons.terms import dirichlet_sum, h_squared
+from solitons.model.terms import dirichlet_sum, h_squared
 
 
 def log_quartic(n, d, lap=None, c0=1.0, c1=0.1, scale=1.0, delta=1e-8):

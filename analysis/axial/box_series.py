@@ -9,9 +9,9 @@ the rounding level of E first is marked)."""
 
 import time
 
-from solitons.axial import AxialGrid, AxialModel, axial_initial, hopf_charge
-from solitons.minimise import StoppingRule, minimise
-from solitons.terms import BUILTIN_TERMS, Term
+from solitons.axial.model import AxialGrid, AxialModel, axial_initial, hopf_charge
+from solitons.model.terms import BUILTIN_TERMS, Term
+from solitons.relaxation.minimise import StoppingRule, minimise
 
 TERMS = (Term("dirichlet", BUILTIN_TERMS["dirichlet"], 1.0), Term("skyrme_faddeev", BUILTIN_TERMS["skyrme_faddeev"], 1.0))
 # 3D, analysis/continuum: the h -> 0 limits in cubes of side 40.07 and 81.87

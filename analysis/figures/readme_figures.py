@@ -15,8 +15,8 @@ import tempfile
 from pathlib import Path
 
 import solitons
-from solitons.html_view import write_view
-from solitons.io import read_result
+from solitons.io.results import read_result
+from solitons.views.html_view import write_view
 
 HERE = Path(__file__).parent
 FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",

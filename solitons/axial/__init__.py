@@ -1,0 +1,1 @@
+"""The axial (half-plane) model and its run."""

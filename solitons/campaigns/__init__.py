@@ -1,0 +1,1 @@
+"""Many relaxations: coupling scans, charge surveys, the continuum command, the dask engine, the catalogue."""

@@ -1,0 +1,1 @@
+"""Files: results and checkpoints (HDF5, JSON, XDMF), provenance, output directories."""

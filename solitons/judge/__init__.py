@@ -1,0 +1,1 @@
+"""Verdicts: the outcome vocabulary and the rules that turn measured evidence into a verdict."""

@@ -1,0 +1,1 @@
+"""Relaxation: initial data and the minimisers with their stopping rule."""

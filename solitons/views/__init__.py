@@ -1,0 +1,1 @@
+"""Figures and the interactive HTML page."""
