@@ -235,7 +235,7 @@ def _command(args) -> int:
     report(summary, out)
     if args.figures:
         _figures(out)
-    if summary["status"] == Outcome.NON_FINITE:
+    if summary["status"] in (Outcome.NON_FINITE, Outcome.NUMERICAL_BLOWUP):
         return EXIT_NON_FINITE
     if summary["verdict"] != "stable":
         return EXIT_UNCONVERGED

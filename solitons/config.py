@@ -20,7 +20,7 @@ from solitons.lattice.grid import BOUNDARIES
 from solitons.model.energy import BACKENDS, MIN_POINTS, SCHEMES
 from solitons.model.terms import BUILTIN_TERMS
 from solitons.relaxation.initial import FAMILIES, describe, expected_charge
-from solitons.relaxation.minimise import METHODS, PRECONDITIONERS
+from solitons.relaxation.minimise import METHODS, PRECONDITIONERS, StoppingRule
 
 DEFAULTS: dict[str, Any] = {
     # box of side 16 at h = 0.2: an empty configuration relaxes Q = 1 to E = 1.231867,
@@ -125,6 +125,10 @@ class RelaxSpec:
     preconditioner_shift: float = 1.0
     saddle_check: bool = True
     saddle_noise: float = 0.02
+
+    def stopping_rule(self) -> StoppingRule:
+        """The run's stopping rule, built here once for every caller."""
+        return StoppingRule(self.max_steps, self.force_tol, self.energy_tol, self.patience)
 
 
 @dataclass(frozen=True)
@@ -571,7 +575,8 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
         saddle_check=c.boolean("relax", "saddle_check"),
         saddle_noise=c.real("relax", "saddle_noise", positive=True),
     )
-    if grid.boundary == "periodic" and relax.preconditioner == "laplacian" and relax.preconditioner_shift == 0.0:
+    if (grid.boundary == "periodic" and relax.preconditioner in ("laplacian", "laplacian_second")
+            and relax.preconditioner_shift == 0.0):
         c.fail("relax.preconditioner_shift", 0.0, "a periodic box needs a positive shift (the constant mode "
                "of the Laplacian is zero)")
     if grid.symmetry == "axial":

@@ -48,6 +48,16 @@ def curve_summary(curves: dict) -> dict:
     return {key: curves[key] for key in ("components", "pair_linking", "linking_charge", "open_chains", "symmetry")}
 
 
+def continue_hint(stopped_by: str, rule, out_dir: str | Path) -> str:
+    """How to continue a run a rule or max_steps stopped: the command line that resumes it
+    exactly from its checkpoint with more steps or a tighter rule."""
+    if stopped_by == "max_steps":
+        change = f"relax.max_steps={2 * rule.max_steps}"
+    else:
+        change = f"relax.energy_tol=0 relax.max_steps={2 * rule.max_steps}"
+    return f"solitons relax CONFIG --out {out_dir} --resume {change}"
+
+
 def report(summary: dict, out_dir: str | Path, stream: TextIO | None = None) -> None:
     """Human-readable account of a finished run."""
     e = summary["evidence"]
@@ -83,6 +93,9 @@ def report(summary: dict, out_dir: str | Path, stream: TextIO | None = None) -> 
     ]
     for warning in summary["warnings"]:
         lines.append(f"WARNING       {warning}")
+    if summary.get("continue_with"):
+        lines.append(f"continue      {summary['continue_with']}   (checkpoint kept: the same steps as a run "
+                     "never stopped)")
     lines.append(f"files         {Path(out_dir) / RESULT}  {Path(out_dir) / SUMMARY}  "
                  f"{Path(out_dir) / XDMF}")
     print("\n".join(lines), file=stream or sys.stdout, flush=True)

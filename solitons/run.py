@@ -49,7 +49,7 @@ from solitons.measure.topology import hopf_charge
 from solitons.model.energy import Model, kernel_couplings
 from solitons.relaxation.initial import add_noise, interpolate_field
 from solitons.relaxation.minimise import History, StoppingRule, minimise
-from solitons.reporting import Progress, curve_summary, describe_model, report
+from solitons.reporting import Progress, continue_hint, curve_summary, describe_model, report
 
 # names other modules and tests reach through this one (their owners are imported above)
 __all__ = ["CHECKPOINT", "RESULT", "SUMMARY", "XDMF", "RunError", "config_hash", "field_from_result", "make_grid",
@@ -311,7 +311,8 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         return {"segments": segments + [current]}
 
     def checkpoint(field, step, hist, state, ended=None):
-        ended = ended or ("interrupted" if interrupts.requested() is not None else "running")
+        ended = ended or ("interrupted" if interrupts.requested() is not None
+                          else state.get("saved_at_stop") or "running")
         write_checkpoint(checkpoint_path, field, grid, step, hist.as_arrays(), spec.text, state,
                          record_with(step, state.get("evaluations", 0), ended))
 
@@ -322,8 +323,7 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
               "bounded needs b >= 0 and a + 4b >= 0): the energy may not be bounded below",
               file=stream, flush=True)
     relax_spec = spec.relax
-    rule = StoppingRule(relax_spec.max_steps, relax_spec.force_tol, relax_spec.energy_tol,
-                        relax_spec.patience)
+    rule = relax_spec.stopping_rule()
     if stream is not None:
         print(f"relaxing Q = {spec.initial.expected_charge} ({spec.initial.description}) "
               f"on {grid.shape[0]}x{grid.shape[1]}x{grid.shape[2]}, "
@@ -401,8 +401,8 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         if coarse is not None and not coarse["used"]:
             verdict["warnings"].append(f"the coarse start was discarded ({coarse['reason']}); "
                                        "the run started from the initial data on the fine grid")
-        stopped_by, stop_warnings = stopping_record(result.converged, result.max_force, rule.force_tol,
-                                                    rule.energy_tol, rule.patience)
+        stopped_by = result.stopped_by
+        stop_warnings = stopping_record(stopped_by, result.max_force, rule.force_tol, rule.energy_tol, rule.patience)
         verdict["warnings"] += stop_warnings
         curves = solution_label(field, grid, density=density)
         if curves["open_chains"]:
@@ -439,6 +439,8 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
             "model": describe_model(model),
             "plain_model": kernel_couplings(model.terms) == (1.0, 1.0),
             "coarse_stage": coarse,
+            "rejected_steps": result.rejected_steps,
+            "time_step": result.time_step,
             "bounded_below_probe": probe,
             "verdict": str(verdict["verdict"]),
             "evidence": verdict["evidence"],
@@ -455,8 +457,12 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
         write_result(out / RESULT, field, grid, density, summary, result.history.as_arrays(),
                      spec.text, __version__)
         write_xdmf(out / XDMF, out / RESULT, grid)
+        resumable = checkpoint_path.exists() and stopped_by in ("energy", "max_steps")
+        if resumable:  # kept: --resume continues the run exactly, with more steps or a tighter rule
+            summary["continue_with"] = continue_hint(stopped_by, rule, out)
+        else:
+            checkpoint_path.unlink(missing_ok=True)
         write_json(out / SUMMARY, summary)
-        checkpoint_path.unlink(missing_ok=True)
         return summary
 
     try:

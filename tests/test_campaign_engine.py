@@ -119,4 +119,6 @@ def test_an_interrupted_task_continues_from_its_checkpoint(tmp_path):
     summary = json.loads((tmp_path / "run" / "summary.json").read_text())
     assert summary["iterations"] == 12
     assert [(seg["from_step"], seg["to_step"]) for seg in summary["segments"]] == [(7, 12)]
-    assert not (tmp_path / "run" / "checkpoint.h5").exists()
+    # stopped by max_steps again: its checkpoint (step 12) stays for a later continuation
+    assert summary["stopped_by"] == "max_steps" and "continue_with" in summary
+    assert (tmp_path / "run" / "checkpoint.h5").exists()

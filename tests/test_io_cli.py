@@ -89,7 +89,10 @@ def test_cli_smoke_run(tmp_path):
         np.testing.assert_allclose(h5["field"].attrs["spacing"], [0.2] * 3)
         np.testing.assert_allclose(h5["field"].attrs["origin"], [-4.0] * 3)
         assert "[grid]" in h5.attrs["config"]
-    assert not (out / "checkpoint.h5").exists()
+    # a run max_steps stopped keeps its checkpoint (issue: it used to be deleted, so
+    # --resume could not continue it) and says how to continue
+    assert (out / "checkpoint.h5").exists() and summary["stopped_by"] == "max_steps"
+    assert "--resume relax.max_steps=" in summary["continue_with"] and "continue" in proc.stdout
     # a second run into the same directory refuses to overwrite without --overwrite
     again = subprocess.run([sys.executable, "-m", "solitons.cli", "relax", str(config), "--out", str(out)],
                            capture_output=True, text=True, cwd=tmp_path)
@@ -138,7 +141,8 @@ def test_interrupted_run_resumes_exactly(tmp_path, method):
     assert [seg["ended"] for seg in resumed["segments"]] == ["interrupted", "max_steps"]
     assert [(seg["from_step"], seg["to_step"]) for seg in resumed["segments"]] == [(0, 17), (17, 45)]
     assert resumed["wall_seconds"] == pytest.approx(sum(seg["wall_seconds"] for seg in resumed["segments"]))
-    assert not (out / "checkpoint.h5").exists()
+    # it ended on max_steps again: the checkpoint of step 45 is kept for a further --resume
+    assert read_checkpoint(out / "checkpoint.h5")["step"] == 45 and resumed["stopped_by"] == "max_steps"
 
     other = load(None, text=text + "", overrides=["grid.spacing=0.21"])
     with interrupts.handling(), pytest.raises(interrupts.Interrupted):

@@ -52,7 +52,7 @@ from solitons.io.results import (
 from solitons.judge.diagnose import assess, stopping_record
 from solitons.judge.outcomes import Outcome
 from solitons.measure.stability import probe_density
-from solitons.relaxation.minimise import StoppingRule, minimise
+from solitons.relaxation.minimise import minimise
 from solitons.reporting import Progress, curve_summary, describe_model
 
 AXIAL_CAVEAT = ("axial minimum: stable within the axial ansatz only; in 3D it may be a saddle. Test it in 3D "
@@ -114,7 +114,7 @@ def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwr
     for stale in stale_temporaries(out):
         stale.unlink(missing_ok=True)
     relax_spec = spec.relax
-    rule = StoppingRule(relax_spec.max_steps, relax_spec.force_tol, relax_spec.energy_tol, relax_spec.patience)
+    rule = relax_spec.stopping_rule()
     expected = spec.initial.expected_charge
     initial_charge = hopf_charge(start, grid)
     if stream is not None:
@@ -155,7 +155,8 @@ def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwr
     if abs(initial_charge - expected) > 0.02 * expected:
         verdict["warnings"].append(f"the initial data measures Q = {initial_charge:.4f} against the family's "
                                    f"{expected}: the half plane is too coarse or too small for this size")
-    stopped_by, stop_warnings = stopping_record(result.converged, result.max_force, relax_spec.force_tol,
+    stopped_by = result.stopped_by
+    stop_warnings = stopping_record(stopped_by, result.max_force, relax_spec.force_tol,
                                                 relax_spec.energy_tol, relax_spec.patience)
     verdict["warnings"] += stop_warnings
     curves = solution_label(field3, grid3, density=density3)

@@ -105,6 +105,7 @@ LEGEND = {
     Outcome.SADDLE: ("s", "tab:blue", "saddle (negative mode)"),
     Outcome.NOT_CONVERGED: ("P", "tab:gray", "not converged"),
     Outcome.NON_FINITE: ("*", "tab:brown", "non-finite energy"),
+    Outcome.NUMERICAL_BLOWUP: ("X", "tab:brown", "flow blew up (numerics)"),
 }
 
 

@@ -34,7 +34,7 @@ import numpy as np
 from solitons.campaigns import catalogue
 from solitons.campaigns.engine import make_task, run_tasks
 from solitons.config import ConfigError, load, read_campaign_table, toml_inline
-from solitons.judge.diagnose import ENERGY_STOP_FORCE, stopping_record
+from solitons.judge.diagnose import ENERGY_STOP_FORCE
 from solitons.judge.outcomes import Outcome
 from solitons.relaxation.initial import describe
 from solitons.run import RESULT, SUMMARY, run_hash
@@ -242,10 +242,7 @@ def run_survey(path, out_dir, overrides=(), scheduler: str | None = None, worker
                          energy_per_q34=summary["energy"] / q**0.75, virial=summary["virial"],
                          measured_Q=summary["hopf_charge"], verdict=summary["verdict"],
                          converged=summary["converged"],
-                         # (summaries written before `stopped_by` existed: the same rule, read back)
-                         stopped_by=summary.get("stopped_by", stopping_record(
-                             summary["converged"], summary["max_force"], spec.relax.force_tol,
-                             spec.relax.energy_tol, spec.relax.patience)[0]),
+                         stopped_by=summary.get("stopped_by"),  # as the minimiser recorded it
                          max_force=summary["max_force"], iterations=summary["iterations"],
                          wall_seconds=summary["wall_seconds"], warnings=" | ".join(summary["warnings"]))
             if "continuum" in summary:  # the limit h -> 0 of this run, with its error bar

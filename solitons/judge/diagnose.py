@@ -269,6 +269,10 @@ def assess(field, grid: Grid, energy_density, hopf_charge: float, expected_charg
     if status == Outcome.NON_FINITE:
         verdict = NON_FINITE
         warnings.append("the energy or force became non-finite; the last finite state was kept")
+    elif status == Outcome.NUMERICAL_BLOWUP:
+        verdict = Outcome.NUMERICAL_BLOWUP
+        warnings.append("NUMERICAL BLOW-UP: the flow's time step kept raising the energy after repeated halving; "
+                        "the state says nothing about the model (use lbfgs, or a smaller relax.time_step)")
     elif status == Outcome.RUNAWAY or (len(energies) and ((energies[-1] < 0 and falling) or (
             negative_density and falling and status != Outcome.CONVERGED))):
         verdict = UNBOUNDED
@@ -353,24 +357,20 @@ def assess(field, grid: Grid, energy_density, hopf_charge: float, expected_charg
     return {"verdict": verdict, "evidence": evidence, "warnings": warnings}
 
 
-def stopping_record(converged: bool, max_force: float, force_tol: float, energy_tol: float,
-                    patience: int) -> tuple[str | None, list[str]]:
-    """Which rule stopped a converged run ("force": max force below force_tol; "energy":
-    the relative energy change stayed below energy_tol for ``patience`` steps) and the
-    warning when the energy rule stopped it with the force still above ENERGY_STOP_FORCE
-    times force_tol: the energy has nearly settled, the largest force has not (measured:
+def stopping_record(stopped_by: str | None, max_force: float, force_tol: float, energy_tol: float,
+                    patience: int) -> list[str]:
+    """The warnings of how a run stopped.  ``stopped_by`` is the rule the minimiser
+    recorded (`solitons.relaxation.minimise.StoppingRule.fired`: "force", "energy", or
+    "max_steps").  Warned: a run the energy rule stopped with the force still above
+    ENERGY_STOP_FORCE times force_tol: the energy has nearly settled, the largest force has not (measured:
     every run but Q = 1 of analysis/survey_q1_16 at h = 0.2 stopped so, with max force
     0.006-0.19 against force_tol 1e-3; the Q = 13 one, continued 2000 steps, fell a
     further 6e-6 relative with the force still at 0.012)."""
-    if not converged:
-        return None, []
-    if max_force < force_tol:
-        return "force", []
     warnings = []
-    if max_force > ENERGY_STOP_FORCE * force_tol:
+    if stopped_by == "energy" and max_force > ENERGY_STOP_FORCE * force_tol:
         warnings.append(f"stopped by the energy rule (relative change below {energy_tol:g} for {patience} steps) "
                         f"with max force {max_force:.2e} = {max_force / force_tol:.0f} x force_tol: the energy "
                         "has nearly settled (it may creep a little lower), the largest force has not; for the "
                         "field itself (or a verdict at a tighter tolerance) rerun with a smaller energy_tol or "
-                        "a larger patience")
-    return "energy", warnings
+                        "a larger patience; --resume continues this run exactly")
+    return warnings

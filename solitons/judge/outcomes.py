@@ -18,6 +18,7 @@ class Outcome(StrEnum):
     NON_FINITE = "non-finite"          # the energy or force became NaN/Inf
     RUNAWAY = "runaway"                # the energy fell far below its start: unbounded
     INTERRUPTED = "interrupted"        # SIGINT / SIGTERM: state checkpointed, no verdict
+    NUMERICAL_BLOWUP = "numerical blow-up"  # a flow's step kept raising the energy: not physics
     # verdicts on the relaxed state (solitons.judge.diagnose documents each)
     STABLE = "stable"
     COLLAPSED = "collapsed"
@@ -30,6 +31,8 @@ class Outcome(StrEnum):
     NOT_CONVERGED = "not converged"
 
 
-STATUSES = (Outcome.CONVERGED, Outcome.MAX_STEPS, Outcome.NON_FINITE, Outcome.RUNAWAY, Outcome.INTERRUPTED)
+STATUSES = (Outcome.CONVERGED, Outcome.MAX_STEPS, Outcome.NON_FINITE, Outcome.RUNAWAY, Outcome.INTERRUPTED,
+            Outcome.NUMERICAL_BLOWUP)
 VERDICTS = (Outcome.STABLE, Outcome.COLLAPSED, Outcome.UNDER_RESOLVED, Outcome.SPREAD, Outcome.BOX_TOO_SMALL,
-            Outcome.UNWOUND, Outcome.UNBOUNDED, Outcome.SADDLE, Outcome.NOT_CONVERGED, Outcome.NON_FINITE)
+            Outcome.UNWOUND, Outcome.UNBOUNDED, Outcome.SADDLE, Outcome.NOT_CONVERGED, Outcome.NON_FINITE,
+            Outcome.NUMERICAL_BLOWUP)

@@ -19,8 +19,26 @@ energy and its tangent gradient (Model.evaluate or the jitted Model.value_and_gr
   density); symplectic Euler with the velocity projected on the tangent plane, and the
   velocity set to zero whenever the energy rises (Battye & Sutcliffe, PRL 81 (1998) 4798
   describe this flow for Hopf solitons).
-* ``gradient_flow``: dn/dt = force, explicit Euler and renormalisation; stiff (stable step
-  about 0.01 h^2), kept as the simplest reference.
+* ``gradient_flow``: dn/dt = force, explicit Euler and renormalisation, kept as the
+  simplest reference.
+
+Time steps of the flows.  Both are explicit, so a step is stable only below a limit set by
+the stiffest mode of the lattice operator: for a mode of curvature lambda (force per unit
+displacement) explicit Euler needs dt < 2 / lambda and symplectic Euler dt < 2 / sqrt(lambda)
+(common practice; derived for x'' = -lambda x and x' = -lambda x).  lambda_max depends on the
+scheme's stencil (the sixth-order symbol reaches 4.5 times the second-order one) and on the
+model's stiffness in the core, so the default step is measured, not fixed: a power
+iteration with Hessian-vector products from differences of the tangent force
+(`largest_curvature`) gives lambda_max of the initial data, and the flows take half the
+stability limit, dt = 1 / lambda_max (gradient flow) and dt = 1 / sqrt(lambda_max)
+(arrested Newton).  A step is rejected, the last good state restored and dt halved when
+it raises the energy by more than ``RISE_FACTOR`` (relative), or by more than
+``KINETIC_FACTOR`` times the kinetic energy the flow
+carried into it (a stable symplectic step can only turn kinetic into potential energy, so
+from rest, or in gradient flow, any rise beyond rounding, ``ROUNDOFF_RISE``, is rejected:
+there every stable mode descends), or when the energy becomes non-finite.  After ``MAX_HALVINGS`` halvings the run stops with
+status ``numerical blow-up`` (or ``non-finite`` if the last failure was a non-finite energy),
+never with a physics verdict.
 
 Stopping rule (all methods): converged when the largest tangent force over the lattice,
 max_x |P dE/dn| / s, is below ``force_tol``, or when the relative energy change per step has
@@ -46,23 +64,58 @@ import scipy.optimize
 from solitons.judge.outcomes import Outcome
 from solitons.model.energy import Model, normalise, project_tangent
 
-METHODS = ("lbfgs", "arrested_newton", "gradient_flow", "scipy_lbfgs")
-PRECONDITIONERS = ("laplacian", "none")
+METHODS = ("lbfgs", "newton_krylov", "arrested_newton", "gradient_flow", "scipy_lbfgs")
+PRECONDITIONERS = ("laplacian", "laplacian_second", "none")
 
 CONVERGED = Outcome.CONVERGED
 MAX_STEPS = Outcome.MAX_STEPS
 NON_FINITE = Outcome.NON_FINITE
 RUNAWAY = Outcome.RUNAWAY
 INTERRUPTED = Outcome.INTERRUPTED
+BLOWUP = Outcome.NUMERICAL_BLOWUP
+
+# Step guard of the flows (module docstring).
+RISE_FACTOR = 0.05      # a step that raises E by more than this (relative) is rejected
+KINETIC_FACTOR = 2.0    # ... or by more than this times the kinetic energy carried in
+ROUNDOFF_RISE = 1e-12   # ... and any rise above rounding (relative) from rest
+MAX_HALVINGS = 12       # then the run stops: numerical blow-up
+CURVATURE_ITERATIONS = 30
 
 
 @dataclass(frozen=True)
 class StoppingRule:
+    """When a relaxation stops: the force rule (largest tangent force below ``force_tol``),
+    the energy rule (relative energy change below ``energy_tol`` for ``patience`` steps in a
+    row), ``max_steps`` (all resumed segments together) and the runaway guard.  Built once
+    per run (`solitons.config.RelaxSpec.stopping_rule`); it refuses values it cannot apply
+    and `fired` names the rule that stopped a run, so no caller guesses it afterwards."""
+
     max_steps: int = 4000
     force_tol: float = 1e-3
     energy_tol: float = 1e-10
     patience: int = 20
     runaway: float = 10.0  # stop when E < -runaway * |E at the start|: energy running away
+
+    def __post_init__(self) -> None:
+        checks = {"max_steps": isinstance(self.max_steps, int) and self.max_steps >= 0,
+                  "force_tol": math.isfinite(self.force_tol) and self.force_tol >= 0,
+                  "energy_tol": math.isfinite(self.energy_tol) and self.energy_tol >= 0,
+                  "patience": isinstance(self.patience, int) and self.patience >= 1,
+                  "runaway": math.isfinite(self.runaway) and self.runaway > 0}
+        for name, ok in checks.items():
+            if not ok:
+                raise ValueError(f"stopping rule: {name} = {getattr(self, name)!r} is not allowed")
+
+    def fired(self, max_force: float, quiet_steps: int) -> str | None:
+        """"force" or "energy" when that rule says stop (the force rule first), else None."""
+        if max_force < self.force_tol:
+            return FORCE_RULE
+        if quiet_steps >= self.patience:
+            return ENERGY_RULE
+        return None
+
+
+FORCE_RULE, ENERGY_RULE, STEP_LIMIT = "force", "energy", "max_steps"
 
 
 @dataclass
@@ -113,6 +166,9 @@ class MinimiseResult:
     history: History
     wall_seconds: float
     message: str = ""
+    stopped_by: str | None = None  # "force", "energy" (converged) or "max_steps"; None otherwise
+    rejected_steps: int = 0  # flows: trial steps rejected by the step guard (each halved dt)
+    time_step: float | None = None  # flows: the step in use at the end (model lengths, or lengths^2)
 
     @property
     def converged(self) -> bool:
@@ -135,6 +191,9 @@ class _Tracker:
         self.checkpoint = checkpoint
         self.checkpoint_every = checkpoint_every
         self.quiet_steps = 0
+        self.stopped_by = None
+        self.rejected = 0  # flows: steps rejected by the step guard
+        self.time_step = None  # flows: the step in use
         self.start = time.perf_counter()
         self.last_energy = self.history.energy[-1] if self.history.energy else None
         self.first_energy = self.history.energy[0] if self.history.energy else None
@@ -146,13 +205,16 @@ class _Tracker:
         """Steps left under max_steps, which counts the steps before a resume too."""
         return max(0, rule.max_steps - self.step)
 
-    def save(self, field, state) -> None:
+    def save(self, field, state, final: bool = False) -> None:
         """Checkpoint the field, the history and the minimiser's state (``state()``: the
         arrays and numbers its loop carries between steps, plus this tracker's counter)."""
         if self.checkpoint is None:
             return
         values = dict(state()) if state is not None else {}
         values["quiet_steps"] = self.quiet_steps
+        # the last step of a run a rule or max_steps stopped: how it ended (else "")
+        values["saved_at_stop"] = (str(CONVERGED) if self.rule.fired(self.history.force[-1], self.quiet_steps)
+                                   else str(MAX_STEPS)) if final else ""
         self.checkpoint(np.asarray(field), self.step, self.history, values)
 
     def record(self, field, energy, max_force, state=None) -> str | None:
@@ -181,10 +243,17 @@ class _Tracker:
         if self.should_stop is not None and self.should_stop():  # e.g. SIGINT / SIGTERM: stop here, state saved
             self.save(field, state)
             return INTERRUPTED
-        if self.checkpoint is not None and self.checkpoint_every and self.step % self.checkpoint_every == 0:
-            self.save(field, state)
-        if max_force < self.rule.force_tol or self.quiet_steps >= self.rule.patience:
+        fired = self.rule.fired(max_force, self.quiet_steps)
+        final = fired is not None or self.step >= self.rule.max_steps
+        if self.checkpoint is not None and (final or (self.checkpoint_every and self.step % self.checkpoint_every == 0)):
+            # the last step is always saved, so that a run stopped by a rule or by
+            # max_steps continues exactly (given more steps or a tighter rule)
+            self.save(field, state, final)
+        if fired is not None:
+            self.stopped_by = fired
             return CONVERGED
+        if self.step >= self.rule.max_steps:
+            self.stopped_by = STEP_LIMIT
         return None
 
 
@@ -213,8 +282,9 @@ def minimise(
 ) -> MinimiseResult:
     """Relax ``field0`` (Nx, Ny, Nz, 3) with ``method``.
 
-    time_step: for the flows, in units of the smallest spacing h (arrested Newton flow,
-    default 0.07) or of h^2 (gradient flow, default 0.01).  progress(step, energy,
+    time_step: for the flows, in units of the smallest spacing h (arrested Newton flow)
+    or of h^2 (gradient flow); None (default): half the stability limit of the measured
+    largest curvature (module docstring).  progress(step, energy,
     max_force, seconds) and checkpoint(field, step, history) are optional callbacks;
     monitor(field) -> dict (see History.append_monitor) is called every ``monitor_every`` steps and its
     values kept in the history.  preconditioner ("laplacian" or "none") and
@@ -241,6 +311,8 @@ def minimise(
     start = time.perf_counter()
     runner = {"lbfgs": functools.partial(_lbfgs, preconditioner=preconditioner,
                                          preconditioner_shift=preconditioner_shift),
+              "newton_krylov": functools.partial(_newton_krylov, preconditioner=preconditioner,
+                                                 preconditioner_shift=preconditioner_shift),
               "arrested_newton": _arrested_newton, "gradient_flow": _gradient_flow, "scipy_lbfgs": _scipy_lbfgs}
     field, status, evaluations, message = runner[method](
         model, jnp.asarray(field0, dtype=jnp.float64), tracker, rule, time_step, lbfgs_memory, resume
@@ -249,6 +321,11 @@ def minimise(
     return MinimiseResult(
         field=np.asarray(field),
         status=status,
+        # (a resume with no steps left stops at once: still the step limit)
+        stopped_by=(tracker.stopped_by or (STEP_LIMIT if status == MAX_STEPS and tracker.step >= rule.max_steps
+                                           else None)) if status in (CONVERGED, MAX_STEPS) else None,
+        rejected_steps=tracker.rejected,
+        time_step=tracker.time_step,
         steps=tracker.step,
         evaluations=evaluations,
         energy=float(final_energy),
@@ -259,31 +336,110 @@ def minimise(
     )
 
 
-def _arrested_newton(model, field, tracker, rule, time_step, _memory, resume=None):
+def largest_curvature(model: Model, field, iterations: int = CURVATURE_ITERATIONS, seed: int = 0) -> float:
+    """Estimate of lambda_max, the largest curvature of the energy along the product of
+    spheres in force units (the largest eigenvalue of the Jacobian of the force
+    -P(dE/dn) / s at ``field``): power iteration on Hessian-vector products taken as
+    differences of the tangent force along the retraction (which also carries the sphere's
+    curvature term -(n . dE/dn) v).  The start is a seeded random tangent field times the
+    checkerboard (-1)^(i+j+k), the top of the lattice spectrum.  Costs ``iterations`` + 1
+    evaluations; the Rayleigh quotient approaches lambda_max from below."""
+    field = np.asarray(field, dtype=np.float64)
+    scale = model.site_scale()
+    mask = model.grid.free_mask()
+    rng = np.random.default_rng(seed)
+    index = np.indices(field.shape[:-1]).sum(axis=0)
+    vector = rng.standard_normal(field.shape) * np.where(index % 2 == 0, 1.0, -1.0)[..., None] * mask
+    _, gradient = model.evaluate(field)
+    base = np.asarray(gradient) / scale
+    estimate = 0.0
+    for _ in range(iterations):
+        vector = vector - np.sum(vector * field, axis=-1, keepdims=True) * field
+        largest = float(np.max(np.linalg.norm(vector, axis=-1)))
+        if not largest > 0:
+            return estimate
+        vector = vector / largest
+        epsilon = 1e-6
+        moved = field + epsilon * vector
+        moved /= np.linalg.norm(moved, axis=-1, keepdims=True)
+        _, gradient = model.evaluate(moved)
+        product = (np.asarray(gradient) / scale - base) / epsilon
+        product = (product - np.sum(product * field, axis=-1, keepdims=True) * field) * mask
+        if not np.all(np.isfinite(product)):
+            return estimate
+        estimate = float(np.sum(vector * product) / np.sum(vector * vector))
+        vector = product
+    return abs(estimate)
+
+
+def flow_time_step(model: Model, field, method: str, time_step: float | None) -> float:
+    """The flow's step in model units: ``time_step`` times h (arrested Newton) or h^2
+    (gradient flow) when given, else half the stability limit of the measured lambda_max
+    (module docstring)."""
     h = min(model.grid.spacing)
-    dt = (0.07 if time_step is None else time_step) * h
+    if time_step:
+        return time_step * (h if method == "arrested_newton" else h * h)
+    curvature = largest_curvature(model, field)
+    if not curvature > 0:  # a flat start (no force anywhere): the former fixed defaults
+        return 0.07 * h if method == "arrested_newton" else 0.01 * h * h
+    return 1.0 / math.sqrt(curvature) if method == "arrested_newton" else 1.0 / curvature
+
+
+def _rejected(new_value: float, value: float, kinetic: float = 0.0) -> bool:
+    """The step guard: a non-finite energy, a rise above RISE_FACTOR (relative), or a rise
+    above KINETIC_FACTOR times the kinetic energy carried into the step plus rounding
+    (from rest: any rise)."""
+    if not math.isfinite(new_value):
+        return True
+    rise = new_value - value
+    return rise > RISE_FACTOR * abs(value) or rise > KINETIC_FACTOR * kinetic + ROUNDOFF_RISE * abs(value)
+
+
+def _give_up(tracker, field, last_value) -> tuple:
+    """After MAX_HALVINGS: non-finite if the last failed trial was, else numerical blow-up."""
+    if not math.isfinite(last_value):
+        tracker.record(field, float("nan"), float("nan"))
+        return NON_FINITE, "energy or force became non-finite at every step size tried"
+    return BLOWUP, (f"numerical blow-up: {MAX_HALVINGS} halvings of the time step did not give a step that "
+                    "lowers the energy (the flow is unstable at this spacing; this is not physics)")
+
+
+def _arrested_newton(model, field, tracker, rule, time_step, _memory, resume=None):
     scale = jnp.asarray(model.site_scale())  # per site on stretched grids: force per unit volume
-    step_fn = _anf_step_fn(model, dt)
+    step_fn = _anf_step_fn(model)
     if resume is None:
+        dt = flow_time_step(model, field, "arrested_newton", time_step)
         velocity = jnp.zeros_like(field)
         value, grad = model.value_and_grad(field)
-        evaluations = 1
+        evaluations, halvings, at_rest = 1 + (0 if time_step else CURVATURE_ITERATIONS + 1), 0, True
     else:
         velocity, grad = jnp.asarray(resume["velocity"]), jnp.asarray(resume["gradient"])
         value, evaluations = float(resume["value"]), 0
+        dt, halvings, at_rest = float(resume["dt"]), int(resume["halvings"]), bool(resume["at_rest"])
+        tracker.rejected = int(resume.get("rejected", 0))
+    tracker.time_step = dt
 
     def state():
         return {"method": "arrested_newton", "velocity": np.asarray(velocity), "gradient": np.asarray(grad),
-                "value": float(value), "evaluations": evaluations}
+                "value": float(value), "evaluations": evaluations, "dt": dt, "halvings": halvings,
+                "at_rest": at_rest, "rejected": tracker.rejected}
 
-    for _ in range(tracker.remaining(rule)):
-        new_field, new_velocity, new_value, new_grad, max_force = step_fn(field, velocity, grad, scale)
+    while tracker.step < rule.max_steps:
+        new_field, new_velocity, new_value, new_grad, max_force, kinetic = step_fn(field, velocity, grad, scale, dt)
         evaluations += 1
         new_value = float(new_value)
-        if not math.isfinite(new_value) or not math.isfinite(float(max_force)):
-            tracker.record(field, new_value, float(max_force))
-            return field, NON_FINITE, evaluations, "energy or force became non-finite"
-        if new_value > float(value):
+        if _rejected(new_value, float(value), 0.0 if at_rest else float(kinetic)) or not math.isfinite(float(max_force)):
+            tracker.rejected += 1
+            halvings += 1
+            if halvings > MAX_HALVINGS:
+                status, message = _give_up(tracker, field, new_value if math.isfinite(float(max_force)) else np.nan)
+                return field, status, evaluations, message
+            dt *= 0.5  # back to the last good state, from rest
+            tracker.time_step = dt
+            velocity, at_rest = jnp.zeros_like(velocity), True
+            continue
+        at_rest = new_value > float(value)
+        if at_rest:
             new_velocity = jnp.zeros_like(new_velocity)  # arrest
         field, velocity, value, grad = new_field, new_velocity, new_value, new_grad
         status = tracker.record(field, value, float(max_force), state)
@@ -292,48 +448,189 @@ def _arrested_newton(model, field, tracker, rule, time_step, _memory, resume=Non
     return field, MAX_STEPS, evaluations, f"stopped after max_steps={rule.max_steps}"
 
 
-def _anf_step_fn(model, dt):
+def _anf_step_fn(model):
     @jax.jit
-    def step(field, velocity, grad, scale):
+    def step(field, velocity, grad, scale, dt):
+        # kinetic energy carried into the step (site masses: the force scale, so that
+        # force = -gradient / mass); half-step velocity, in energy units
+        kinetic = 0.5 * jnp.sum(scale * jnp.sum(velocity * velocity, axis=-1, keepdims=True))
         velocity = velocity - dt * grad / scale
         new_field = normalise(field + dt * velocity)
         velocity = project_tangent(new_field, velocity)
         value, new_grad = model.value_and_grad(new_field)
         max_force = jnp.max(jnp.linalg.norm(new_grad / scale, axis=-1))
-        return new_field, velocity, value, new_grad, max_force
+        return new_field, velocity, value, new_grad, max_force, kinetic
 
     return step
 
 
 def _gradient_flow(model, field, tracker, rule, time_step, _memory, resume=None):
-    h = min(model.grid.spacing)
-    dt = (0.01 if time_step is None else time_step) * h * h
     scale = jnp.asarray(model.site_scale())
 
     @jax.jit
-    def step(field, grad, scale):
+    def step(field, grad, scale, dt):
         new_field = normalise(field - dt * grad / scale)
         value, new_grad = model.value_and_grad(new_field)
         return new_field, value, new_grad, jnp.max(jnp.linalg.norm(new_grad / scale, axis=-1))
 
     if resume is None:
-        _, grad = model.value_and_grad(field)
-        evaluations = 1
+        dt = flow_time_step(model, field, "gradient_flow", time_step)
+        value, grad = model.value_and_grad(field)
+        value = float(value)
+        evaluations, halvings = 1 + (0 if time_step else CURVATURE_ITERATIONS + 1), 0
     else:
         grad, evaluations = jnp.asarray(resume["gradient"]), 0
+        value, dt, halvings = float(resume["value"]), float(resume["dt"]), int(resume["halvings"])
+        tracker.rejected = int(resume.get("rejected", 0))
+    tracker.time_step = dt
 
     def state():
-        return {"method": "gradient_flow", "gradient": np.asarray(grad),
+        return {"method": "gradient_flow", "gradient": np.asarray(grad), "value": value, "dt": dt,
+                "halvings": halvings, "rejected": tracker.rejected, "evaluations": evaluations}
+
+    while tracker.step < rule.max_steps:
+        new_field, new_value, new_grad, max_force = step(field, grad, scale, dt)
+        evaluations += 1
+        new_value = float(new_value)
+        if _rejected(new_value, value) or not math.isfinite(float(max_force)):
+            tracker.rejected += 1
+            halvings += 1
+            if halvings > MAX_HALVINGS:
+                status, message = _give_up(tracker, field, new_value if math.isfinite(float(max_force)) else np.nan)
+                return field, status, evaluations, message
+            dt *= 0.5
+            tracker.time_step = dt
+            continue
+        field, grad, value = new_field, new_grad, new_value
+        status = tracker.record(field, value, float(max_force), state)
+        if status:
+            return field, status, evaluations, ""
+    return field, MAX_STEPS, evaluations, f"stopped after max_steps={rule.max_steps}"
+
+
+# Truncated Newton (newton_krylov): inner conjugate-gradient iterations at most, forcing
+# term at most, largest site displacement of one step (radians on S^2).
+NEWTON_MAX_CG = 100
+NEWTON_MAX_FORCING = 0.5
+NEWTON_MAX_SITE_STEP = 0.3
+
+
+def _newton_krylov(model, field, tracker, rule, _time_step, _memory, resume=None, preconditioner="laplacian",
+                   preconditioner_shift=None):
+    """Truncated (inexact) Newton on the product of spheres: each step solves H p = -g
+    approximately by preconditioned conjugate gradients (Nocedal & Wright, Numerical
+    Optimization, 2nd ed., Alg. 7.1, line-search Newton-CG), with Hessian-vector products
+    from differences of the tangent gradient along the retraction (which carry the
+    sphere's curvature term), the forcing term eta = min(1/2, sqrt(|g| / |g_0|)) (Eisenstat &
+    Walker's choice, quadratic-like convergence near the minimum), CG stopped at negative
+    curvature, the same preconditioner W as L-BFGS, and a backtracking Armijo search on the
+    retracted step.  Zero modes (translations, rotations of the whole soliton) cost nothing:
+    the gradient has no component along them, so CG never builds one.  The loop carries
+    only the point, so a resume from the checkpoint is exact."""
+    from solitons.lattice.preconditioner import SHIFT, LaplacianPreconditioner
+
+    shape = field.shape
+    sites = int(np.prod(shape[:-1]))
+    scale = model.site_scale()
+    mask = np.asarray(model.grid.free_mask(), dtype=np.float64)
+    field = np.array(field, dtype=np.float64)
+    operator = None
+    if preconditioner in ("laplacian", "laplacian_second"):
+        shift = SHIFT if preconditioner_shift is None else preconditioner_shift
+        make = getattr(model, "preconditioner", None)
+        taps = model.stencil.taps if preconditioner == "laplacian" else None  # laplacian_second: the former W
+        operator = make(shift) if make is not None else LaplacianPreconditioner(model.grid, shift, taps)
+        work = np.empty((sites, 3))
+    elif preconditioner not in PRECONDITIONERS:
+        raise ValueError(f"unknown preconditioner {preconditioner!r}; choose from {PRECONDITIONERS}")
+    weights = 1.0 / model.grid.site_weights()[..., None] if model.grid.stretched else None
+
+    def tangent(vectors, at):
+        return (vectors - np.sum(vectors * at, axis=-1, keepdims=True) * at) * mask
+
+    def precondition(residual):
+        if operator is None:
+            return residual * weights if weights is not None else residual.copy()
+        return tangent(operator.apply(residual.reshape(sites, 3), work).reshape(shape).copy(), field)
+
+    def force(gradient):
+        return float(np.max(np.linalg.norm(gradient / scale, axis=-1)))
+
+    if resume is None:
+        value, gradient = model.evaluate(field)
+        value, gradient = float(value), np.array(gradient)
+        evaluations = 1
+        first_norm = float(np.linalg.norm(gradient))
+    else:
+        value, gradient = float(resume["value"]), np.array(resume["gradient"], dtype=np.float64)
+        evaluations, first_norm = 0, float(resume["first_norm"])
+
+    def state():
+        return {"method": "newton_krylov", "value": value, "gradient": gradient, "first_norm": first_norm,
                 "evaluations": evaluations}
 
-    for _ in range(tracker.remaining(rule)):
-        new_field, value, new_grad, max_force = step(field, grad, scale)
+    def hessian_times(vector):
+        nonlocal evaluations
+        epsilon = 1e-6 / max(float(np.max(np.linalg.norm(vector, axis=-1))), 1e-300)
+        moved = field + epsilon * vector
+        moved /= np.linalg.norm(moved, axis=-1, keepdims=True)
+        _, moved_gradient = model.evaluate(moved)
         evaluations += 1
-        if not (math.isfinite(float(value)) and math.isfinite(float(max_force))):
-            tracker.record(field, float(value), float(max_force))
-            return field, NON_FINITE, evaluations, "energy or force became non-finite"
-        field, grad = new_field, new_grad
-        status = tracker.record(field, float(value), float(max_force), state)
+        return tangent((np.asarray(moved_gradient) - gradient) / epsilon, field)
+
+    def newton_direction():
+        """Approximate solution of H p = -g by PCG; -W g when the first direction already
+        has non-positive curvature."""
+        g_norm = float(np.linalg.norm(gradient))
+        forcing = min(NEWTON_MAX_FORCING, math.sqrt(g_norm / max(first_norm, 1e-300)))
+        solution = np.zeros_like(gradient)
+        residual = -gradient
+        z = precondition(residual)
+        direction = z.copy()
+        rz = float(np.sum(residual * z))
+        for iteration in range(NEWTON_MAX_CG):
+            product = hessian_times(direction)
+            curvature = float(np.sum(direction * product))
+            if not curvature > 0:
+                return z if iteration == 0 else solution
+            alpha = rz / curvature
+            solution += alpha * direction
+            residual -= alpha * product
+            if float(np.linalg.norm(residual)) <= forcing * g_norm:
+                break
+            z = precondition(residual)
+            rz_new = float(np.sum(residual * z))
+            direction = z + (rz_new / rz) * direction
+            rz = rz_new
+        return solution
+
+    while tracker.step < rule.max_steps:
+        step = newton_direction()
+        slope = float(np.sum(gradient * step))
+        if not slope < 0:  # rounding level: the direction no longer descends
+            step = precondition(-gradient)
+            slope = float(np.sum(gradient * step))
+        largest = float(np.max(np.linalg.norm(step, axis=-1)))
+        alpha = min(1.0, NEWTON_MAX_SITE_STEP / max(largest, 1e-300))
+        accepted = saw_non_finite = False
+        for _ in range(30):
+            trial = field + alpha * step
+            trial /= np.linalg.norm(trial, axis=-1, keepdims=True)
+            new_value, new_gradient = model.evaluate(trial)
+            new_value = float(new_value)
+            evaluations += 1
+            if math.isfinite(new_value) and new_value <= value + 1e-4 * alpha * slope:
+                accepted = True
+                break
+            saw_non_finite |= not math.isfinite(new_value)
+            alpha *= 0.5 if math.isfinite(new_value) else 0.1
+        if not accepted:
+            if saw_non_finite:
+                tracker.record(field, float("nan"), float("nan"))
+                return field, NON_FINITE, evaluations, "energy became non-finite"
+            return field, MAX_STEPS, evaluations, "line search failed (rounding-error level reached)"
+        field, value, gradient = trial, new_value, np.array(new_gradient)
+        status = tracker.record(field, value, force(gradient), state)
         if status:
             return field, status, evaluations, ""
     return field, MAX_STEPS, evaluations, f"stopped after max_steps={rule.max_steps}"
@@ -434,11 +731,12 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory, resume=None, precond
     weights = np.zeros(0)  # diagonal W: stretched grids use per-site 1 / (dx/dxi product), the volume metric
     weights3 = np.zeros(0)
     operator = None
-    if preconditioner == "laplacian":
+    if preconditioner in ("laplacian", "laplacian_second"):
         shift = SHIFT if preconditioner_shift is None else preconditioner_shift
         # a model may bring its own (the axial half plane: solitons.axial.model.AxialPreconditioner)
         make = getattr(model, "preconditioner", None)
-        operator = make(shift) if make is not None else LaplacianPreconditioner(model.grid, shift)
+        taps = model.stencil.taps if preconditioner == "laplacian" else None  # laplacian_second: the former W
+        operator = make(shift) if make is not None else LaplacianPreconditioner(model.grid, shift, taps)
         w_gradient = np.empty((sites, 3))  # W g of the current point
         # the newest accepted y and a scratch pair buffer (y_hist holds W y)
         y_buffers = [np.empty((sites, 3), dtype=HISTORY_DTYPE), np.empty((sites, 3), dtype=HISTORY_DTYPE)]
