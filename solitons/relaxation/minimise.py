@@ -538,8 +538,11 @@ def _newton_krylov(model, field, tracker, rule, _time_step, _memory, resume=None
     if preconditioner in ("laplacian", "laplacian_second"):
         shift = SHIFT if preconditioner_shift is None else preconditioner_shift
         make = getattr(model, "preconditioner", None)
-        taps = model.stencil.taps if preconditioner == "laplacian" else None  # laplacian_second: the former W
-        operator = make(shift) if make is not None else LaplacianPreconditioner(model.grid, shift, taps)
+        if make is not None:
+            operator = make(shift)
+        else:  # laplacian: the scheme's own symbol; laplacian_second: the second-order one (the former W)
+            taps = model.stencil.taps if preconditioner == "laplacian" else None
+            operator = LaplacianPreconditioner(model.grid, shift, taps)
         work = np.empty((sites, 3))
     elif preconditioner not in PRECONDITIONERS:
         raise ValueError(f"unknown preconditioner {preconditioner!r}; choose from {PRECONDITIONERS}")
@@ -735,8 +738,11 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory, resume=None, precond
         shift = SHIFT if preconditioner_shift is None else preconditioner_shift
         # a model may bring its own (the axial half plane: solitons.axial.model.AxialPreconditioner)
         make = getattr(model, "preconditioner", None)
-        taps = model.stencil.taps if preconditioner == "laplacian" else None  # laplacian_second: the former W
-        operator = make(shift) if make is not None else LaplacianPreconditioner(model.grid, shift, taps)
+        if make is not None:
+            operator = make(shift)
+        else:  # laplacian: the scheme's own symbol; laplacian_second: the second-order one (the former W)
+            taps = model.stencil.taps if preconditioner == "laplacian" else None
+            operator = LaplacianPreconditioner(model.grid, shift, taps)
         w_gradient = np.empty((sites, 3))  # W g of the current point
         # the newest accepted y and a scratch pair buffer (y_hist holds W y)
         y_buffers = [np.empty((sites, 3), dtype=HISTORY_DTYPE), np.empty((sites, 3), dtype=HISTORY_DTYPE)]
