@@ -14,7 +14,13 @@ import sys
 from importlib import resources
 from pathlib import Path
 
-EXIT_OK, EXIT_UNCONVERGED, EXIT_INPUT, EXIT_NON_FINITE = 0, 1, 2, 3  # interrupted: 128 + signal
+# Exit codes (README, "Reading a result"): a script can rely on these.
+EXIT_OK = 0            # converged, whatever the verdict (the verdict is in the output and summary.json)
+EXIT_UNCONVERGED = 1   # finished without meeting the stopping rule (or a campaign with failed runs)
+EXIT_INPUT = 2         # refused before any work: configuration, arguments, output place, memory
+EXIT_NON_FINITE = 3    # the energy became non-finite, or a flow blew up numerically
+EXIT_CHARGE_LOST = 4   # the relaxed state lost its Hopf charge (by more than 1/2)
+# interrupted by a signal: 128 + its number (130 SIGINT, 143 SIGTERM)
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -109,6 +115,10 @@ def _main(argv: list[str] | None) -> int:
         args.overrides = list(args.overrides) + extra
     elif extra:
         parser.error(f"unrecognised arguments: {' '.join(extra)}")
+    refusal = _refusal(args)
+    if refusal:
+        print(f"solitons: error: {refusal}", file=sys.stderr)
+        return EXIT_INPUT
     from solitons import interrupts
 
     try:
@@ -125,6 +135,46 @@ def _main(argv: list[str] | None) -> int:
             hint = "; no checkpoint was written (the relaxation had not started)"
         print(f"solitons: interrupted by {stop}{hint}", file=sys.stderr, flush=True)
         return stop.exit_code
+
+
+def _refusal(args) -> str | None:
+    """What is wrong with the command line, checked before any import or work (one line
+    naming the option and its value), or None."""
+    if getattr(args, "resume", False) and getattr(args, "overwrite", False):
+        return "--resume and --overwrite contradict each other: continue the run, or start it again"
+    workers = getattr(args, "workers", None)
+    if workers is not None and workers < 1:
+        return f"--workers {workers}: must be a positive number of worker processes"
+    level = getattr(args, "level", None)
+    if level is not None and not -1.0 < level < 1.0:
+        return f"--level {level}: the isosurface level of n3 must lie strictly between -1 and 1"
+    scheduler = getattr(args, "scheduler", None)
+    if scheduler not in (None, "inline"):
+        return _scheduler_refusal(scheduler)
+    return None
+
+
+SCHEDULER_PROBE_SECONDS = 5.0
+
+
+def _scheduler_refusal(address: str) -> str | None:
+    """A dask scheduler address that nothing answers at is refused at once (dask itself
+    waits 30 s and then raises)."""
+    import socket
+    from urllib.parse import urlsplit
+
+    parts = urlsplit(address)
+    try:
+        port = parts.port
+    except ValueError:
+        port = None
+    if parts.scheme != "tcp" or not parts.hostname or port is None:
+        return f"--scheduler {address}: expected tcp://host:port (or 'inline')"
+    try:
+        with socket.create_connection((parts.hostname, port), timeout=SCHEDULER_PROBE_SECONDS):
+            return None
+    except OSError as error:
+        return f"--scheduler {address}: no dask scheduler answers there ({error.strerror or error})"
 
 
 def _run(args) -> int:
@@ -153,7 +203,6 @@ def _campaign_dir(args):
 def _command(args) -> int:
     from solitons.config import ConfigError, load
     from solitons.io.results import OutputError, ResultFileError, check_output_dir
-    from solitons.judge.outcomes import Outcome
     from solitons.model.userterms import UserTermError
     from solitons.run import RunError, relax, report
 
@@ -235,9 +284,18 @@ def _command(args) -> int:
     report(summary, out)
     if args.figures:
         _figures(out)
+    return exit_code(summary)
+
+
+def exit_code(summary: dict) -> int:
+    """The exit code of a finished relaxation (see the table at the top)."""
+    from solitons.judge.outcomes import Outcome
+
     if summary["status"] in (Outcome.NON_FINITE, Outcome.NUMERICAL_BLOWUP):
         return EXIT_NON_FINITE
-    if summary["verdict"] != "stable":
+    if abs(summary["hopf_charge"] - summary["expected_charge"]) > 0.5:
+        return EXIT_CHARGE_LOST
+    if not summary["converged"]:
         return EXIT_UNCONVERGED
     return EXIT_OK
 

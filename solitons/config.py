@@ -57,7 +57,8 @@ def _show(value: Any) -> str:
         return repr(value)
     if isinstance(value, dict):
         return "{table}"
-    return str(value)
+    text = str(value)
+    return text if len(text) <= 40 else f"{text[:20]}...({len(text)} characters)"
 
 
 @dataclass(frozen=True)
@@ -140,12 +141,23 @@ class RunSpec:
     text: str  # the merged configuration as TOML, written into every output file
 
 
+# Real numbers beyond this magnitude are refused before any work: no coupling, spacing or
+# constant of this tool needs them, and beyond it float arithmetic overflows (a 300-digit
+# integer cannot become a float; a coupling of 1e308 overflows the energy).  Integers keep
+# their own checks (a huge grid.points is refused by the memory guard, naming the GiB).
+MAX_MAGNITUDE = 1e12
+
+
 def _is_int(v):
     return isinstance(v, int) and not isinstance(v, bool)
 
 
 def _is_real(v):
-    return (isinstance(v, (int, float)) and not isinstance(v, bool)) and math.isfinite(v)
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        return False
+    if isinstance(v, int):
+        return abs(v) <= MAX_MAGNITUDE
+    return math.isfinite(v) and abs(v) <= MAX_MAGNITUDE
 
 
 class _Checker:
@@ -170,7 +182,7 @@ class _Checker:
     def real(self, table, name, positive=False, non_negative=False):
         key, v = f"{table}.{name}", self.get(table, name)
         if not _is_real(v):
-            self.fail(key, v, "must be a finite number")
+            self.fail(key, v, "must be a finite number of magnitude at most 1e12")
         if positive and v <= 0:
             self.fail(key, v, "must be positive")
         if non_negative and v < 0:
@@ -197,7 +209,8 @@ class _Checker:
         ok = _is_int if kind == "int" else _is_real
         for item in values:
             if not ok(item):
-                self.fail(key, v, f"must hold {'integers' if kind == 'int' else 'finite numbers'}")
+                what = "integers" if kind == "int" else "finite numbers of magnitude at most 1e12"
+                self.fail(key, v, f"must hold {what}")
             if positive and item <= 0:
                 self.fail(key, v, "must be positive")
             if non_negative and item < 0:
@@ -327,7 +340,7 @@ def _term_spec(c: _Checker, name: str, term: dict, base_dir: Path) -> TermSpec:
                f"unknown term kind; built-in kinds: {', '.join(BUILTIN_TERMS)}, or {USER_KIND!r}")
     coupling = term.get("coupling", 1.0)
     if not _is_real(coupling):
-        c.fail(f"{key}.coupling", coupling, "must be a finite number")
+        c.fail(f"{key}.coupling", coupling, "must be a finite number of magnitude at most 1e12")
     if kind != USER_KIND:
         allowed = dict(BUILTIN_TERMS[kind].parameters)
         parameters = []
@@ -338,7 +351,7 @@ def _term_spec(c: _Checker, name: str, term: dict, base_dir: Path) -> TermSpec:
                 expected = ", ".join(list(_TERM_KEYS) + list(allowed))
                 c.fail(f"{key}.{sub}", value, f"unknown key for a {kind} term; expected {expected}")
             if not _is_real(value):
-                c.fail(f"{key}.{sub}", value, "must be a finite number")
+                c.fail(f"{key}.{sub}", value, "must be a finite number of magnitude at most 1e12")
             parameters.append((sub, float(value)))
         if kind == "potential" and dict(parameters).get("power", 1.0) < 1.0:
             c.fail(f"{key}.power", dict(parameters)["power"], "must be at least 1 (smooth at the vacuum)")
@@ -399,7 +412,7 @@ def _initial_part(c: _Checker, prefix: str, table: dict, top: bool = False) -> d
         v = table.get(name, defaults[name])
         values = [v] * 3 if not isinstance(v, list) else v
         if len(values) != 3 or not all(_is_real(x) for x in values):
-            fail(name, v, "must be a list of three finite numbers")
+            fail(name, v, "must be a list of three finite numbers of magnitude at most 1e12")
         return tuple(float(x) for x in values)
 
     if family in ("axial", "torus_knot"):
@@ -436,7 +449,7 @@ def _initial_part(c: _Checker, prefix: str, table: dict, top: bool = False) -> d
         return part
     size = table.get("size", defaults["size"])
     if not _is_real(size) or size <= 0:
-        fail("size", size, "must be a positive number")
+        fail("size", size, "must be a positive number of magnitude at most 1e12")
     part["size"] = float(size)
     part["centre"] = triple("centre")
     part["orientation"] = triple("orientation")

@@ -24,6 +24,7 @@ from solitons.assemble import (
     make_terms,
 )
 from solitons.config import RunSpec
+from solitons.io.locks import holding
 from solitons.io.provenance import config_hash, physics_hash, provenance, run_hash, user_files
 from solitons.io.results import (
     CHECKPOINT,
@@ -251,6 +252,8 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     state needs the saddle check (default: noise-free configured initial data; a caller
     that hands over a field derived from such data, as the continuum levels do, says so).
 
+    DIR is locked for the run (`solitons.io.locks`): a second run into it meanwhile is
+    refused at once with DirectoryInUse, naming the owner.
     Raises RunError (and writes nothing) when the run cannot start: output in the way,
     memory, a checkpoint of another configuration, non-finite initial data.  A SIGINT or
     SIGTERM (see solitons.interrupts) stops the relaxation after its current step, writes
@@ -258,10 +261,17 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     from it takes the same steps as a run never stopped.  The summary records every
     segment of a resumed run (``segments``); ``iterations``, ``evaluations`` and
     ``wall_seconds`` count all of them."""
-    if spec.grid.symmetry == "axial":
-        from solitons.axial.run import relax_axial
+    with holding(out_dir, stream):  # a second run into DIR meanwhile is refused (DirectoryInUse)
+        if spec.grid.symmetry == "axial":
+            from solitons.axial.run import relax_axial
 
-        return relax_axial(spec, out_dir, resume=resume, overwrite=overwrite, stream=stream)
+            return relax_axial(spec, out_dir, resume=resume, overwrite=overwrite, stream=stream)
+        return _relax(spec, out_dir, resume, overwrite, stream, initial_field, symmetric_start)
+
+
+def _relax(spec: RunSpec, out_dir: str | Path, resume: bool, overwrite: bool, stream: TextIO | None,
+           initial_field: np.ndarray | None, symmetric_start: bool | None) -> dict:
+    """`relax` inside the directory's lock."""
     out = Path(out_dir)
     grid = make_grid(spec)
     check_memory(grid)

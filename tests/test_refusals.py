@@ -139,3 +139,58 @@ def test_file_mode_follows_the_umask():
     mask = os.umask(0)
     os.umask(mask)
     assert FILE_MODE == 0o666 & ~mask and Path(__file__).exists()
+
+
+# --- refused at once (issue: each of these gave a traceback, a hang, an empty output
+# directory, library warnings, or was accepted) ---
+
+@pytest.mark.parametrize("override", ["terms.dirichlet.coupling=" + "9" * 300, "grid.spacing=" + "9" * 300,
+                                      "initial.size=" + "9" * 300, "terms.dirichlet.coupling=1e308"])
+def test_numbers_beyond_any_physical_value_are_refused(tmp_path, capsys, recwarn, override):
+    code, out, err = run(["demo", "--out", tmp_path / "out", override], capsys)
+    key = override.split("=")[0]
+    assert code == 2 and key in err and "magnitude at most 1e12" in err and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1 and len(err) < 300  # one line; the value shortened
+    assert not (tmp_path / "out").exists()
+    assert not [w for w in recwarn if issubclass(w.category, RuntimeWarning)]
+
+
+@pytest.mark.parametrize("argv, named", [
+    (["--workers", "-3"], "--workers -3"), (["--workers", "0"], "--workers 0"),
+    (["--scheduler", "tcp://127.0.0.1:1"], "no dask scheduler answers"),
+    (["--scheduler", "127.0.0.1:8786"], "expected tcp://host:port"),
+])
+def test_campaign_options_that_cannot_work_are_refused(tmp_path, capsys, argv, named):
+    """Before: --workers -3 hung at 0 % and left an empty out/; --workers 0 was accepted;
+    an address nothing answers at raised a traceback after 30 s (now: a 5 s probe)."""
+    config = tmp_path / "scan.toml"
+    config.write_text(TINY + "[scan]\nparameter = \"terms.dirichlet.coupling\"\nvalues = [1.0, 1.1]\n")
+    for command in ("scan", "survey"):
+        code, _, err = run([command, config, "--out", tmp_path / "out"] + argv, capsys)
+        assert code == 2 and named in err and "Traceback" not in err
+        assert not (tmp_path / "out").exists()
+
+
+def test_resume_with_overwrite_and_bad_levels_are_refused(tmp_path, capsys):
+    config = tmp_path / "tiny.toml"
+    config.write_text(TINY)
+    code, _, err = run(["relax", config, "--out", tmp_path / "out", "--resume", "--overwrite"], capsys)
+    assert code == 2 and "--resume and --overwrite" in err and not (tmp_path / "out").exists()
+    for level in ("5", "nan", "-1"):
+        code, _, err = run(["show", tmp_path / "none.h5", f"--level={level}"], capsys)
+        assert code == 2 and f"--level {float(level)}" in err
+
+
+def test_exit_codes_follow_the_table():
+    """0 for a converged run whatever its verdict, distinct codes for not converged (1),
+    non-finite or blown up (3) and charge lost (4) (README, exit codes)."""
+    from solitons.cli import exit_code
+
+    base = {"status": "converged", "converged": True, "hopf_charge": 1.0, "expected_charge": 1, "verdict": "stable"}
+    assert exit_code(base) == 0
+    assert exit_code({**base, "verdict": "under-resolved"}) == 0
+    assert exit_code({**base, "verdict": "box too small"}) == 0
+    assert exit_code({**base, "status": "max_steps", "converged": False, "verdict": "not converged"}) == 1
+    assert exit_code({**base, "hopf_charge": 0.02, "verdict": "unwound"}) == 4
+    assert exit_code({**base, "status": "non-finite", "converged": False}) == 3
+    assert exit_code({**base, "status": "numerical blow-up", "converged": False}) == 3

@@ -77,6 +77,7 @@ def test_changed_user_file_is_recomputed_and_recorded(tmp_path):
     import hashlib
     import json
     import sqlite3
+    from pathlib import Path
 
     import h5py
 
@@ -97,12 +98,15 @@ def test_changed_user_file_is_recomputed_and_recorded(tmp_path):
     reference = run_scan(builtin, tmp_path / "reference", stream=None, figures=False)
     assert edited[0]["energy"] == pytest.approx(reference[0]["energy"], rel=1e-10)
     assert abs(edited[0]["energy"] - first[0]["energy"]) > 1e-3
-    with h5py.File(out / "points" / "000" / "result.h5") as h5:
+    # points are named by content: the edited file's run has a directory of its own
+    point = Path(edited[0]["path"]).relative_to(out)
+    assert point != Path(first[0]["path"]).relative_to(out)
+    with h5py.File(out / point / "result.h5") as h5:
         record = json.loads(h5.attrs["provenance"])
     (entry,) = record["user_terms"]
     assert entry["sha256"] == hashlib.sha256(term.read_bytes()).hexdigest() and "2.0 * m" in entry["content"]
     assert {"jax", "numba", "numpy", "scipy"} <= set(record["libraries"]) and record["libraries"]["numpy"]
     with sqlite3.connect(out / "catalogue.sqlite") as db:
-        path, provenance = db.execute("SELECT path, provenance FROM runs").fetchone()
-    assert path == "points/000" and (out / path / "result.h5").exists()
+        path, provenance = db.execute("SELECT path, provenance FROM runs WHERE path = ?", (str(point),)).fetchone()
+    assert (out / path / "result.h5").exists()
     assert json.loads(provenance)["user_terms"][0]["sha256"] == entry["sha256"]

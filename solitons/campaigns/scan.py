@@ -7,7 +7,7 @@ A scan file is a run configuration plus a ``[scan]`` table::
     values = [0.2, 0.1, 0.0, -0.1]          # or start / stop / num for an even range
     continuation = false                    # true: each point starts from the previous result
 
-Each point is relaxed into DIR/points/NNN/ (its own result.h5 and summary.json) as a task
+Each point is relaxed into DIR/points/<run hash>/ (its own result.h5 and summary.json) as a task
 on the distributed engine (solitons.campaigns.engine); DIR/catalogue.sqlite records every finished
 point, and a point whose summary.json exists for the same configuration is not relaxed
 again.  The scan
@@ -18,6 +18,7 @@ DIR/gallery.png (every point's isosurface), and prints a table.
 from __future__ import annotations
 
 import csv
+import hashlib
 import json
 import sys
 import time
@@ -109,6 +110,21 @@ LEGEND = {
 }
 
 
+def point_names(specs, continuation: bool) -> list[str]:
+    """The run directory of each point, named by its content: the run hash of its
+    configuration (with continuation, of the chain of configurations up to it, since each
+    point starts from the previous result).  Two scans into one directory therefore add
+    their points, and a point is never read back from a run of another configuration."""
+    names, chain = [], hashlib.sha256()
+    for spec in specs:
+        digest = run_hash(spec)
+        if continuation:
+            chain.update(digest.encode())
+            digest = chain.hexdigest()[:16]
+        names.append(f"points/{digest}")
+    return names
+
+
 def _finished_summary(point_dir: Path, spec) -> dict | None:
     summary_path = point_dir / SUMMARY
     if summary_path.exists() and (point_dir / RESULT).exists():
@@ -129,7 +145,7 @@ def run_scan(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr, fi
     table, specs = scan_specs(path, overrides)
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
-    names = [f"points/{index:03d}" for index in range(len(specs))]
+    names = point_names([spec for _, spec in specs], table["continuation"])
     summaries = [_finished_summary(out / name, spec) for name, (_, spec) in zip(names, specs)]
     skipped = [s is not None for s in summaries]
     base_dir = Path(path).resolve().parent
@@ -165,7 +181,10 @@ def run_scan(path, out_dir, overrides=(), stream: TextIO | None = sys.stderr, fi
                   if row["status"] == "failed"]
         if failed:
             raise RunError("scan points failed: " + "; ".join(f"{r['task']}: {r['error']}" for r in failed))
-        summaries = [json.loads((out / name / SUMMARY).read_text()) for name in names]
+        summaries = [_finished_summary(out / name, spec) for name, (_, spec) in zip(names, specs)]
+        missing = [name for name, summary in zip(names, summaries) if summary is None]
+        if missing:  # read back by content: a point's summary must carry its own configuration's hash
+            raise RunError(f"scan points without a result of their configuration: {', '.join(missing)}")
     rows = []
     for index, ((point, _), summary) in enumerate(zip(specs, summaries)):
         row = {"index": index}

@@ -37,6 +37,7 @@ from solitons.config import ConfigError, load, read_campaign_table, toml_inline
 from solitons.judge.diagnose import ENERGY_STOP_FORCE
 from solitons.judge.outcomes import Outcome
 from solitons.relaxation.initial import describe
+from solitons.io.provenance import physics_hash
 from solitons.run import RESULT, SUMMARY, run_hash
 
 SURVEY_KEYS = ("charges", "seeds", "families", "continuum")
@@ -212,7 +213,10 @@ def run_survey(path, out_dir, overrides=(), scheduler: str | None = None, worker
     base_dir = Path(path).resolve().parent
     tasks, names = [], []
     for q, part, seed, spec in entries:
-        name = f"Q{q}/{_slug(describe(part))}-s{seed}"
+        # named by content: what defines the field (grid, terms, every initial-data key, seed),
+        # so families that differ in any key never share a run, and a rerun with other [relax]
+        # settings continues the same run from its checkpoint
+        name = f"Q{q}/{_slug(describe(part))}-s{seed}-{physics_hash(spec.text)[:10]}"
         names.append(name)
         previous = done.get(name)
         if (previous and previous["config_hash"] == run_hash(spec)
