@@ -508,6 +508,24 @@ def _gradient_flow(model, field, tracker, rule, time_step, _memory, resume=None)
     return field, MAX_STEPS, evaluations, f"stopped after max_steps={rule.max_steps}"
 
 
+def preconditioner_operator(model, preconditioner: str, shift: float | None):
+    """W of `lbfgs` and `newton_krylov`: None for "none"; the model's own when it brings one
+    (the axial half plane: `solitons.axial.model.AxialPreconditioner`); else the shifted
+    Laplacian with the scheme's own symbol ("laplacian") or the second-order one
+    ("laplacian_second", the former W)."""
+    from solitons.lattice.preconditioner import SHIFT, LaplacianPreconditioner
+
+    if preconditioner not in PRECONDITIONERS:
+        raise ValueError(f"unknown preconditioner {preconditioner!r}; choose from {PRECONDITIONERS}")
+    if preconditioner == "none":
+        return None
+    shift = SHIFT if shift is None else shift
+    make = getattr(model, "preconditioner", None)
+    if make is not None:
+        return make(shift)
+    return LaplacianPreconditioner(model.grid, shift, model.stencil.taps if preconditioner == "laplacian" else None)
+
+
 # Truncated Newton (newton_krylov): inner conjugate-gradient iterations at most, forcing
 # term at most, largest site displacement of one step (radians on S^2).
 NEWTON_MAX_CG = 100
@@ -527,25 +545,14 @@ def _newton_krylov(model, field, tracker, rule, _time_step, _memory, resume=None
     retracted step.  Zero modes (translations, rotations of the whole soliton) cost nothing:
     the gradient has no component along them, so CG never builds one.  The loop carries
     only the point, so a resume from the checkpoint is exact."""
-    from solitons.lattice.preconditioner import SHIFT, LaplacianPreconditioner
 
     shape = field.shape
     sites = int(np.prod(shape[:-1]))
     scale = model.site_scale()
     mask = np.asarray(model.grid.free_mask(), dtype=np.float64)
     field = np.array(field, dtype=np.float64)
-    operator = None
-    if preconditioner in ("laplacian", "laplacian_second"):
-        shift = SHIFT if preconditioner_shift is None else preconditioner_shift
-        make = getattr(model, "preconditioner", None)
-        if make is not None:
-            operator = make(shift)
-        else:  # laplacian: the scheme's own symbol; laplacian_second: the second-order one (the former W)
-            taps = model.stencil.taps if preconditioner == "laplacian" else None
-            operator = LaplacianPreconditioner(model.grid, shift, taps)
-        work = np.empty((sites, 3))
-    elif preconditioner not in PRECONDITIONERS:
-        raise ValueError(f"unknown preconditioner {preconditioner!r}; choose from {PRECONDITIONERS}")
+    operator = preconditioner_operator(model, preconditioner, preconditioner_shift)
+    work = np.empty((sites, 3))
     weights = 1.0 / model.grid.site_weights()[..., None] if model.grid.stretched else None
 
     def tangent(vectors, at):
@@ -715,7 +722,6 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory, resume=None, precond
     (solitons.lattice.preconditioner; two applications per step, W g and W y) or, with
     preconditioner "none", the inverse site weight (1 on a uniform grid)."""
     from solitons.lattice import fieldops
-    from solitons.lattice.preconditioner import SHIFT, LaplacianPreconditioner
 
     scale = model.force_scale()
     inv_scale = 1.0 / scale
@@ -733,21 +739,11 @@ def _lbfgs(model, field, tracker, rule, _time_step, memory, resume=None, precond
     spare = np.empty((sites, 3))  # the trial gradient; swapped with the current one on acceptance
     weights = np.zeros(0)  # diagonal W: stretched grids use per-site 1 / (dx/dxi product), the volume metric
     weights3 = np.zeros(0)
-    operator = None
-    if preconditioner in ("laplacian", "laplacian_second"):
-        shift = SHIFT if preconditioner_shift is None else preconditioner_shift
-        # a model may bring its own (the axial half plane: solitons.axial.model.AxialPreconditioner)
-        make = getattr(model, "preconditioner", None)
-        if make is not None:
-            operator = make(shift)
-        else:  # laplacian: the scheme's own symbol; laplacian_second: the second-order one (the former W)
-            taps = model.stencil.taps if preconditioner == "laplacian" else None
-            operator = LaplacianPreconditioner(model.grid, shift, taps)
+    operator = preconditioner_operator(model, preconditioner, preconditioner_shift)
+    if operator is not None:
         w_gradient = np.empty((sites, 3))  # W g of the current point
         # the newest accepted y and a scratch pair buffer (y_hist holds W y)
         y_buffers = [np.empty((sites, 3), dtype=HISTORY_DTYPE), np.empty((sites, 3), dtype=HISTORY_DTYPE)]
-    elif preconditioner not in PRECONDITIONERS:
-        raise ValueError(f"unknown preconditioner {preconditioner!r}; choose from {PRECONDITIONERS}")
     if model.grid.stretched:
         weights = np.ascontiguousarray(1.0 / model.grid.site_weights().reshape(sites))
         if operator is None:
