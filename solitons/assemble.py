@@ -14,7 +14,7 @@ from solitons.lattice.grid import Grid
 from solitons.model.energy import Model
 from solitons.model.terms import BUILTIN_TERMS, Term
 from solitons.model.userterms import load_user_term
-from solitons.relaxation.initial import add_noise, initial_field
+from solitons.relaxation.initial import add_noise, initial_field, interpolate_field
 
 # Peak growth of resident memory per grid point during an L-BFGS relaxation (float64,
 # memory 4), measured with analysis/bench_memory.py: 461-488 bytes per point at 96^3 for the
@@ -64,7 +64,8 @@ def make_initial_field(spec: RunSpec, grid: Grid) -> np.ndarray:
 
 def field_from_result(path: str, grid: Grid) -> np.ndarray:
     """The relaxed field of a result file on ``grid``: an axial result rotated out from its
-    half plane (solitons.axial.model.to_3d), a 3D one as it is when its grid is this one."""
+    half plane (solitons.axial.model.to_3d), a 3D one as it is on its own grid and
+    interpolated (cubic splines, `interpolate_field`) onto another spacing or box."""
     from solitons.io.results import read_axial
 
     axial = read_axial(path)
@@ -73,10 +74,13 @@ def field_from_result(path: str, grid: Grid) -> np.ndarray:
 
         return to_3d(axial["field"], axial["grid"], grid)
     data = read_result(path)
-    if data["grid"] != grid:
-        raise RunError(f"{path}: its grid {data['grid'].shape} (h = {data['grid'].spacing}) is not this run's "
-                       f"{grid.shape} (h = {grid.spacing}); a 3D result seeds a run on the same grid")
-    return data["field"]
+    if data["grid"] == grid:
+        return data["field"]
+    if data["grid"].stretch != grid.stretch:
+        raise RunError(f"{path}: its grid is stretched by {data['grid'].stretch}, this run's by {grid.stretch}; "
+                       "a 3D result seeds a run of the same stretch")
+    # another spacing or box: cubic splines onto this grid (outside the file's box, its vacuum border)
+    return interpolate_field(data["field"], data["grid"], grid)
 
 
 def available_memory_bytes() -> int | None:

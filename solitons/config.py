@@ -353,13 +353,8 @@ def _term_spec(c: _Checker, name: str, term: dict, base_dir: Path) -> TermSpec:
             if not _is_real(value):
                 c.fail(f"{key}.{sub}", value, "must be a finite number of magnitude at most 1e12")
             parameters.append((sub, float(value)))
-        if kind == "potential" and dict(parameters).get("power", 1.0) < 1.0:
-            c.fail(f"{key}.power", dict(parameters)["power"], "must be at least 1 (smooth at the vacuum)")
-        if kind == "log_quartic":
-            for sub in ("scale", "delta"):
-                if sub in dict(parameters) and dict(parameters)[sub] <= 0.0:
-                    c.fail(f"{key}.{sub}", dict(parameters)[sub], "must be positive (the logarithm of H^2 + "
-                           "delta scale^4 must stay finite where H^2 = 0, i.e. in the vacuum)")
+        for sub, value, why in BUILTIN_TERMS[kind].violations(dict(parameters)):  # the term's own limits
+            c.fail(f"{key}.{sub}", value, why)
         return TermSpec(name, kind, float(coupling), tuple(sorted(parameters)))
     for sub, value in term.items():
         if sub not in _TERM_KEYS + _USER_TERM_KEYS:

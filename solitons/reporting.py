@@ -1,5 +1,5 @@
-"""What a run prints: progress lines, the model's description, the summary's curve entry
-and the closing account of a finished run."""
+"""What a run prints and records: progress lines, the model's description, the summary of
+a finished run (one builder for 3D and axial runs) and its closing account."""
 
 from __future__ import annotations
 
@@ -9,7 +9,9 @@ from typing import TextIO
 
 import numpy as np
 
-from solitons.io.results import RESULT, SUMMARY, XDMF
+from solitons import __version__
+from solitons.io.provenance import provenance, run_hash
+from solitons.io.results import NORMALISATION_TEXT, RESULT, SUMMARY, XDMF
 
 
 class Progress:
@@ -48,6 +50,57 @@ def curve_summary(curves: dict) -> dict:
     return {key: curves[key] for key in ("components", "pair_linking", "linking_charge", "open_chains", "symmetry")}
 
 
+def run_summary(spec, model, grid, *, energies: dict, charge: float, initial_charge: float, curves: dict,
+                virial: dict, result, segments: list, backend: str, probe: dict, decision,
+                wall_seconds: float, **extra) -> dict:
+    """The summary of a finished run, 3D or axial: its energies, charge, curves, virial,
+    how the minimiser ended, the grid (for an axial run the 3D grid its files hold), the
+    model, the verdict with its evidence and warnings, and the provenance.  ``result`` is
+    the `MinimiseResult` of the last segment, ``segments`` every segment's record;
+    ``extra`` adds entries of one kind of run (the coarse stage, the axial half plane)."""
+    from solitons.model.energy import kernel_couplings
+
+    summary = {
+        "energy": float(sum(energies.values())),
+        "terms": energies,
+        "hopf_charge": charge,
+        "expected_charge": spec.initial.expected_charge,
+        "initial_charge": initial_charge,
+        "family": spec.initial.description,
+        "label": curves["label"],
+        "curves": curve_summary(curves),
+        "virial": virial["total"],
+        "virial_per_axis": virial["per_axis"],
+        "converged": result.converged,
+        "status": str(result.status),
+        "stopped_by": result.stopped_by,
+        "iterations": result.steps,
+        "evaluations": sum(seg["evaluations"] for seg in segments) if segments else result.evaluations,
+        "segments": segments,
+        "max_force": result.max_force,
+        "grid": {"shape": list(grid.shape), "spacing": list(grid.spacing), "origin": list(grid.origin),
+                 "boundary": grid.boundary, "stretch": list(grid.stretch), "scheme": spec.grid.scheme,
+                 "box_side": list(grid.side)},
+        "method": spec.relax.method,
+        "backend": backend,
+        "model": describe_model(model),
+        "plain_model": kernel_couplings(model.terms) == (1.0, 1.0),
+        "rejected_steps": result.rejected_steps,
+        "time_step": result.time_step,
+        "bounded_below_probe": probe,
+        "verdict": str(decision.verdict),
+        "evidence": decision.evidence,
+        "warnings": list(decision.warnings),
+        "wall_seconds": wall_seconds,
+        "normalisation": NORMALISATION_TEXT,
+        "version": __version__,
+        "config_hash": run_hash(spec),
+        "provenance": provenance(spec),
+    }
+    summary.update(extra)
+    return summary
+
+
 def continue_hint(stopped_by: str, rule, out_dir: str | Path) -> str:
     """How to continue a run a rule or max_steps stopped: the command line that resumes it
     exactly from its checkpoint with more steps or a tighter rule."""
@@ -70,19 +123,19 @@ def report(summary: dict, out_dir: str | Path, stream: TextIO | None = None) -> 
     for name, value in summary["terms"].items():
         lines.append(f"  {name:22s} {value:.6f}")
     lines += [
-        f"trust         virial residual {summary['virial']:+.4f} "
+        (f"trust         virial residual {summary['virial']:+.4f} "
         f"(per axis {', '.join(f'{v:+.4f}' for v in summary['virial_per_axis'])}); "
         f"spacing / core thickness {e['spacing_over_thickness']:.3f} "
         f"(core thickness {e['core_thickness']:.3f}); "
-        f"boundary energy {100 * e['boundary_energy_fraction']:.3f} %",
-        f"Hopf charge   Q = {summary['hopf_charge']:.6f}   (expected {summary['expected_charge']} from "
+        f"boundary energy {100 * e['boundary_energy_fraction']:.3f} %"),
+        (f"Hopf charge   Q = {summary['hopf_charge']:.6f}   (expected {summary['expected_charge']} from "
         f"{summary['family']}; initial data {summary['initial_charge']:.4f}; linking of two preimages "
-        f"{summary['curves']['linking_charge']:.3f})",
+        f"{summary['curves']['linking_charge']:.3f})"),
         f"label         {summary['label']}",
-        f"converged     {'yes' if summary['converged'] else 'NO'} ({summary['status']}"
+        (f"converged     {'yes' if summary['converged'] else 'NO'} ({summary['status']}"
         f"{' by the ' + summary['stopped_by'] + ' rule' if summary.get('stopped_by') else ''}, "
         f"{summary['iterations']} steps, {summary['evaluations']} evaluations, "
-        f"max force {summary['max_force']:.2e}, {summary['wall_seconds']:.1f} s)",
+        f"max force {summary['max_force']:.2e}, {summary['wall_seconds']:.1f} s)"),
         f"grid          {g['shape'][0]}x{g['shape'][1]}x{g['shape'][2]}, h = {g['spacing'][0]:g}, "
         f"box side {g['box_side'][0]:g}, {g['boundary']}, {g['scheme']}-order"
         + (f"; AXIAL mode: half plane {summary['axial']['shape'][0]}x{summary['axial']['shape'][1]}, "

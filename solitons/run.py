@@ -8,6 +8,9 @@ import datetime
 import math
 import sys
 import time
+from collections.abc import Callable
+from dataclasses import dataclass
+from dataclasses import field as dataclass_field
 from pathlib import Path
 from typing import TextIO
 
@@ -28,10 +31,10 @@ from solitons.io.locks import holding
 from solitons.io.provenance import config_hash, physics_hash, provenance, run_hash, user_files
 from solitons.io.results import (
     CHECKPOINT,
-    NORMALISATION_TEXT,
     RESULT,
     SUMMARY,
     XDMF,
+    as_json,
     check_output_dir,
     prepare_output_dir,
     read_checkpoint,
@@ -41,24 +44,22 @@ from solitons.io.results import (
     write_result,
     write_xdmf,
 )
-from solitons.judge.diagnose import assess, snapshot, stopping_record
+from solitons.judge.diagnose import Evidence, bounded_below_notice, decide, gather, snapshot
 from solitons.judge.outcomes import Outcome
 from solitons.lattice.grid import Grid
 from solitons.measure.knots import solution_label
 from solitons.measure.stability import lowest_modes, probe_density
 from solitons.measure.topology import hopf_charge
-from solitons.model.energy import Model, kernel_couplings
+from solitons.model.energy import Model
+from solitons.record import Result
 from solitons.relaxation.initial import add_noise, interpolate_field
 from solitons.relaxation.minimise import History, StoppingRule, minimise
-from solitons.reporting import Progress, continue_hint, curve_summary, describe_model, report
+from solitons.reporting import Progress, continue_hint, describe_model, report, run_summary
 
 # names other modules and tests reach through this one (their owners are imported above)
 __all__ = ["CHECKPOINT", "RESULT", "SUMMARY", "XDMF", "RunError", "config_hash", "field_from_result", "make_grid",
-           "make_model", "make_terms", "provenance", "relax", "report", "run_hash", "user_files"]
+           "make_model", "make_terms", "provenance", "relax", "relax_record", "report", "run_hash", "user_files"]
 
-
-# Relative tolerance of the check of the initial data's charge against its family formula.
-CHARGE_CHECK = 0.02
 
 # Steps between the slower diagnostics kept in the history (virial, Hopf charge): each
 # costs about one energy evaluation plus a few FFTs.
@@ -139,9 +140,6 @@ def saddle_check(model: Model, field: np.ndarray, energy: float, rule: StoppingR
     return record
 
 
-# model lengths: wider border cells on a stretched grid are warned about (analysis/
-# stretched_grid_study.txt: Q = 1 held with cells up to 5.3 wide, unwound with 17.4)
-STRETCH_CELL_LIMIT = 8.0
 MONITOR_CHARGE_SPACING = 0.125  # the monitor's Hopf charge uses every s-th site while s h <= this
 
 
@@ -246,11 +244,12 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
           stream: TextIO | None = sys.stderr, initial_field: np.ndarray | None = None,
           symmetric_start: bool | None = None) -> dict:
     """Relax the configuration of ``spec`` and write DIR/result.h5 and DIR/summary.json.
-    Returns the summary dictionary.  ``stream`` receives progress (None: quiet);
-    ``initial_field`` replaces the configured initial data (continuation in scans).
-    ``symmetric_start``: whether the start can be symmetric, so that a would-be stable
-    state needs the saddle check (default: noise-free configured initial data; a caller
-    that hands over a field derived from such data, as the continuum levels do, says so).
+    Returns the summary dictionary (`relax_record` returns the whole record).  ``stream``
+    receives progress (None: quiet); ``initial_field`` replaces the configured initial
+    data (continuation in scans).  ``symmetric_start``: whether the start can be
+    symmetric, so that a would-be stable state needs the saddle check (default: noise-free
+    configured initial data; a caller that hands over a field derived from such data, as
+    the continuum levels do, says so).
 
     DIR is locked for the run (`solitons.io.locks`): a second run into it meanwhile is
     refused at once with DirectoryInUse, naming the owner.
@@ -261,24 +260,87 @@ def relax(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: b
     from it takes the same steps as a run never stopped.  The summary records every
     segment of a resumed run (``segments``); ``iterations``, ``evaluations`` and
     ``wall_seconds`` count all of them."""
+    return relax_record(spec, out_dir, resume, overwrite, stream, initial_field, symmetric_start).summary
+
+
+def relax_record(spec: RunSpec, out_dir: str | Path | None, resume: bool = False, overwrite: bool = False,
+                 stream: TextIO | None = sys.stderr, initial_field: np.ndarray | None = None,
+                 symmetric_start: bool | None = None) -> Result:
+    """`relax`, returning the `Result` record (field, grid, energy density, history,
+    summary, configuration).  With ``out_dir`` None nothing is written: no lock, no
+    checkpoint, no result files (and nothing to resume)."""
+    if out_dir is None:
+        if resume:
+            raise RunError("--resume needs an output directory holding the checkpoint")
+        return _pipeline(spec, None, False, overwrite, stream, initial_field, symmetric_start)
     with holding(out_dir, stream):  # a second run into DIR meanwhile is refused (DirectoryInUse)
-        if spec.grid.symmetry == "axial":
-            from solitons.axial.run import relax_axial
-
-            return relax_axial(spec, out_dir, resume=resume, overwrite=overwrite, stream=stream)
-        return _relax(spec, out_dir, resume, overwrite, stream, initial_field, symmetric_start)
+        return _pipeline(spec, Path(out_dir), resume, overwrite, stream, initial_field, symmetric_start)
 
 
-def _relax(spec: RunSpec, out_dir: str | Path, resume: bool, overwrite: bool, stream: TextIO | None,
-           initial_field: np.ndarray | None, symmetric_start: bool | None) -> dict:
-    """`relax` inside the directory's lock."""
-    out = Path(out_dir)
+def _pipeline(spec: RunSpec, out: Path | None, resume: bool, overwrite: bool, stream: TextIO | None,
+              initial_field: np.ndarray | None, symmetric_start: bool | None) -> Result:
+    """prepare (resume or start), relax, measure, judge, write."""
+    if spec.grid.symmetry == "axial":
+        from solitons.axial.run import relax_axial
+
+        return relax_axial(spec, out, resume=resume, overwrite=overwrite, stream=stream)
+    start = prepare(spec, out, resume, overwrite, initial_field, stream)
+    result, coarse = relax_start(spec, start, initial_field, stream)
+    symmetric = (spec.initial.noise == 0.0 and initial_field is None) if symmetric_start is None \
+        else symmetric_start
+    try:
+        state = measure(spec, start, result, coarse, symmetric, stream)
+        decision = decide(state.evidence)
+        summary = run_summary(spec, start.model, start.grid, energies=state.energies, charge=state.charge,
+                              initial_charge=start.initial_charge, curves=state.curves, virial=state.virial,
+                              result=result, segments=start.segments, backend=start.model.route.name,
+                              probe=start.probe, decision=decision, wall_seconds=state.wall_seconds,
+                              coarse_stage=coarse)
+        write(spec, out, start, result, state, summary)
+    except interrupts.Interrupted as stop:  # during the diagnostics: keep the relaxed state for --resume
+        if start.checkpoint_path is not None:
+            start.segments.pop()  # the checkpoint's record writes this segment again, as interrupted
+            start.checkpoint(result.field, result.steps, result.history, {"evaluations": result.evaluations},
+                             "interrupted")
+            stop.checkpoint, stop.step = start.checkpoint_path, result.steps
+        raise
+    history = result.history.as_arrays()
+    return Result(as_json(summary), np.asarray(result.field), start.grid, state.density, history, spec.text, out)
+
+
+@dataclass
+class Start:
+    """What a relaxation starts from (`prepare`): the grid and model, the initial field
+    (or the checkpoint's), the state of a resumed run and the checkpoint writer."""
+
+    grid: Grid
+    model: Model
+    field: np.ndarray
+    initial_charge: float
+    probe: dict
+    rule: StoppingRule
+    history: History | None = None
+    step: int = 0
+    saved_state: dict | None = None
+    segments: list = dataclass_field(default_factory=list)
+    checkpoint_path: Path | None = None
+    checkpoint: Callable | None = None
+    started: str = ""
+    clock: float = 0.0
+    resumed: bool = False
+
+
+def prepare(spec: RunSpec, out: Path | None, resume: bool, overwrite: bool, initial_field, stream) -> Start:
+    """Check the output directory, read the checkpoint of a resumed run or make the initial
+    data, clear what --overwrite replaces, announce the run and evaluate its first state
+    (which compiles the route's code on a first run)."""
     grid = make_grid(spec)
     check_memory(grid)
     model = make_model(spec, grid)
-    checkpoint_path = out / CHECKPOINT
+    checkpoint_path = out / CHECKPOINT if out is not None else None
     history, start_step, saved_state, segments = None, 0, None, []
-    check_output_dir(out)
+    if out is not None:
+        check_output_dir(out)
     if resume:
         if not checkpoint_path.exists():
             raise RunError(f"{checkpoint_path}: no checkpoint to resume from")
@@ -296,191 +358,157 @@ def _relax(spec: RunSpec, out_dir: str | Path, resume: bool, overwrite: bool, st
         if saved_state is not None and saved_state.get("method") != spec.relax.method:
             saved_state = None
     else:
-        if (out / RESULT).exists() and not overwrite:
+        if out is not None and (out / RESULT).exists() and not overwrite:
             raise RunError(f"{out / RESULT} exists; pass --overwrite to replace it or --resume")
-        if checkpoint_path.exists() and not overwrite:
+        if out is not None and checkpoint_path.exists() and not overwrite:
             raise RunError(f"{checkpoint_path} holds an unfinished run; pass --resume to continue it or "
                            "--overwrite to start again (which deletes it)")
         field0 = make_initial_field(spec, grid) if initial_field is None else np.asarray(initial_field)
         if field0.shape != grid.shape + (3,):
             raise RunError(f"initial field of shape {field0.shape} does not fit the grid {grid.shape}")
-    prepare_output_dir(out)
-    for stale in stale_temporaries(out):  # left by a killed process: never a complete file
-        stale.unlink(missing_ok=True)
-        if stream is not None:
-            print(f"  removed {stale}, a half-written file left by an interrupted process", file=stream)
-    if not resume:
-        checkpoint_path.unlink(missing_ok=True)  # --overwrite: the old run's checkpoint goes too
-    expected = spec.initial.expected_charge
-    initial_charge = hopf_charge(field0, grid)
-    segment_started, segment_clock = _utc_now(), [time.perf_counter()]
+    if out is not None:
+        prepare_output_dir(out)
+        for stale in stale_temporaries(out):  # left by a killed process: never a complete file
+            stale.unlink(missing_ok=True)
+            if stream is not None:
+                print(f"  removed {stale}, a half-written file left by an interrupted process", file=stream)
+        if not resume:
+            checkpoint_path.unlink(missing_ok=True)  # --overwrite: the old run's checkpoint goes too
+    start = Start(grid, model, field0, hopf_charge(field0, grid), probe_density(model.terms),
+                  spec.relax.stopping_rule(), history, start_step, saved_state, segments, checkpoint_path,
+                  started=_utc_now(), resumed=resume)
+    if out is not None:
+        def checkpoint(field, step, hist, state, ended=None):
+            ended = ended or ("interrupted" if interrupts.requested() is not None
+                              else state.get("saved_at_stop") or "running")
+            current = _segment(start.started, start_step, step, state.get("evaluations", 0),
+                               time.perf_counter() - start.clock, ended)
+            write_checkpoint(checkpoint_path, field, grid, step, hist.as_arrays(), spec.text, state,
+                             {"segments": segments + [current]})
 
-    def record_with(step, evaluations, ended):
-        current = _segment(segment_started, start_step, step, evaluations, time.perf_counter() - segment_clock[0],
-                           ended)
-        return {"segments": segments + [current]}
-
-    def checkpoint(field, step, hist, state, ended=None):
-        ended = ended or ("interrupted" if interrupts.requested() is not None
-                          else state.get("saved_at_stop") or "running")
-        write_checkpoint(checkpoint_path, field, grid, step, hist.as_arrays(), spec.text, state,
-                         record_with(step, state.get("evaluations", 0), ended))
-
-    probe = probe_density(model.terms)
-    if probe["negative"] and stream is not None:
-        print("WARNING: the energy density is negative for some local fields "
-              f"(quartic part a = {probe['quartic']['a']:g}, b = {probe['quartic']['b']:g}; "
-              "bounded needs b >= 0 and a + 4b >= 0): the energy may not be bounded below",
-              file=stream, flush=True)
-    relax_spec = spec.relax
-    rule = relax_spec.stopping_rule()
+        start.checkpoint = checkpoint
+    notice = bounded_below_notice(start.probe)
+    if notice and stream is not None:
+        print(notice, file=stream, flush=True)
     if stream is not None:
         print(f"relaxing Q = {spec.initial.expected_charge} ({spec.initial.description}) "
               f"on {grid.shape[0]}x{grid.shape[1]}x{grid.shape[2]}, "
               f"h = {grid.spacing}{' at the centre, stretch ' + str(grid.stretch) if grid.stretched else ''}, "
               f"box side {tuple(round(x, 4) for x in grid.side)}, {grid.boundary} boundary, "
-              f"{spec.grid.scheme}-order scheme, method {relax_spec.method}",
+              f"{spec.grid.scheme}-order scheme, method {spec.relax.method}",
               file=stream, flush=True)
         print(f"  model: {describe_model(model)}", file=stream, flush=True)
     _check_finite_start(model, field0, warm_up(model, field0, stream))
-    segment_clock[0] = time.perf_counter()
-    coarse = None
-    with interrupts.deferred(), _naming_checkpoint(checkpoint_path):
-        if relax_spec.coarse_start and not resume and initial_field is None:
-            coarse, coarse_field = coarse_stage(spec, grid, model, rule, stream)
+    start.clock = time.perf_counter()
+    return start
+
+
+def relax_start(spec: RunSpec, start: Start, initial_field, stream):
+    """The coarse stage (a fresh run from configured data) and the minimiser.  Returns
+    (MinimiseResult, coarse report or None); a signal raises `Interrupted` after the
+    checkpoint."""
+    relax_spec = spec.relax
+    coarse, field0 = None, start.field
+    with interrupts.deferred(), _naming_checkpoint(start.checkpoint_path):
+        if relax_spec.coarse_start and not start.resumed and initial_field is None:
+            coarse, coarse_field = coarse_stage(spec, start.grid, start.model, start.rule, stream)
             if coarse_field is not None:
                 field0 = coarse_field
         result = minimise(
-            model, field0, relax_spec.method, rule,
+            start.model, field0, relax_spec.method, start.rule,
             time_step=relax_spec.time_step or None,
-            history=history, start_step=start_step,
+            history=start.history, start_step=start.step,
             progress=Progress(stream, relax_spec.progress_seconds),
-            checkpoint=checkpoint, checkpoint_every=relax_spec.checkpoint_every,
-            monitor=lambda f: monitor_values(model, f),
+            checkpoint=start.checkpoint, checkpoint_every=relax_spec.checkpoint_every,
+            monitor=lambda f: monitor_values(start.model, f),
             monitor_every=MONITOR_EVERY,
             preconditioner=relax_spec.preconditioner,
             preconditioner_shift=relax_spec.preconditioner_shift,
-            resume=saved_state,
+            resume=start.saved_state,
             should_stop=interrupts.stop_requested,
         )
     if result.status == Outcome.INTERRUPTED:
-        raise interrupts.Interrupted(interrupts.requested(), checkpoint_path, result.steps)
-    segments.append(_segment(segment_started, start_step, result.steps, result.evaluations,
-                             time.perf_counter() - segment_clock[0], result.status))
-    needs_saddle_check = (spec.initial.noise == 0.0 and initial_field is None) if symmetric_start is None \
-        else symmetric_start
-
-    def finish() -> dict:
-        """Diagnostics, verdict and result files of the relaxed state."""
-        field = result.field
-        energies = model.energies(field)
-        virial = model.virial(field)
-        charge = hopf_charge(field, grid)
-        density = model.energy_density(field)
-        if not result.history.monitor_step or result.history.monitor_step[-1] != result.steps:
-            # the final state's diagnostics, from the values just computed
-            final = snapshot(field, grid, density)
-            final.update(virial=virial["total"], hopf_charge=charge)
-            result.history.append_monitor(result.steps, final)
-        hessian = None
-        if spec.relax.hessian_modes and result.converged:
-            if stream is not None:
-                print(f"  Hessian: lowest {spec.relax.hessian_modes} modes by Lanczos ...", file=stream, flush=True)
-            hessian = lowest_modes(model, field, spec.relax.hessian_modes)
-        def verdict_with(saddle=None):
-            return assess(field, grid, density, charge, expected, virial["total"], result.status,
-                          result.history.as_arrays(), result.history.energy, probe["negative"], hessian, saddle)
-
-        verdict = verdict_with()
-        # only a state that would be called stable needs the evidence that it is no saddle
-        if verdict["verdict"] == Outcome.STABLE and spec.relax.saddle_check and needs_saddle_check:
-            with interrupts.deferred():
-                saddle = saddle_check(model, field, result.energy, rule, spec, stream)
-            if saddle is None:  # interrupted (the handler below checkpoints the relaxed state)
-                raise interrupts.Interrupted(interrupts.requested())
-            verdict = verdict_with(saddle)
-        if abs(initial_charge - expected) > CHARGE_CHECK * expected:
-            verdict["warnings"].append(
-                f"the initial data measures Q = {initial_charge:.4f} against the family's {expected}: "
-                f"the grid (h = {grid.spacing[0]:g}) is too coarse for this family and size")
-        if grid.stretched and grid.largest_cell() > STRETCH_CELL_LIMIT:
-            verdict["warnings"].append(
-                f"the outermost cells of the stretched grid are {grid.largest_cell():.2f} model lengths wide: a soliton "
-                "that drifts or spreads into them can unwind through the lattice (seen: Q = 1 on 81^3, h = 0.25, "
-                "stretch 2, cells 17.4 wide; held up to 5.3); use a larger stretch or fewer points")
-        if coarse is not None and not coarse["used"]:
-            verdict["warnings"].append(f"the coarse start was discarded ({coarse['reason']}); "
-                                       "the run started from the initial data on the fine grid")
-        stopped_by = result.stopped_by
-        stop_warnings = stopping_record(stopped_by, result.max_force, rule.force_tol, rule.energy_tol, rule.patience)
-        verdict["warnings"] += stop_warnings
-        curves = solution_label(field, grid, density=density)
-        if curves["open_chains"]:
-            verdict["warnings"].append(f"{curves['open_chains']} preimage curves are cut by the box: "
-                                       "the soliton touches the border")
-        if abs(curves["linking_charge"] - charge) > 0.1 * max(1.0, abs(charge)):
-            verdict["warnings"].append(
-                f"the linking number of two preimages ({curves['linking_charge']:.3f}) disagrees with "
-                f"the Whitehead integral Q = {charge:.4f}: curves under-resolved or field not smooth")
-        segments[-1]["wall_seconds"] = time.perf_counter() - segment_clock[0]  # diagnostics included
-        summary = {
-            "energy": float(sum(energies.values())),
-            "terms": energies,
-            "hopf_charge": charge,
-            "expected_charge": expected,
-            "initial_charge": initial_charge,
-            "family": spec.initial.description,
-            "label": curves["label"],
-            "curves": curve_summary(curves),
-            "virial": virial["total"],
-            "virial_per_axis": virial["per_axis"],
-            "converged": result.converged,
-            "status": str(result.status),
-            "stopped_by": stopped_by,
-            "iterations": result.steps,
-            "evaluations": sum(seg["evaluations"] for seg in segments),
-            "segments": segments,
-            "max_force": result.max_force,
-            "grid": {"shape": list(grid.shape), "spacing": list(grid.spacing),
-                     "origin": list(grid.origin), "boundary": grid.boundary, "stretch": list(grid.stretch),
-                     "scheme": spec.grid.scheme, "box_side": list(grid.side)},
-            "method": relax_spec.method,
-            "backend": model.route.name,
-            "model": describe_model(model),
-            "plain_model": kernel_couplings(model.terms) == (1.0, 1.0),
-            "coarse_stage": coarse,
-            "rejected_steps": result.rejected_steps,
-            "time_step": result.time_step,
-            "bounded_below_probe": probe,
-            "verdict": str(verdict["verdict"]),
-            "evidence": verdict["evidence"],
-            "warnings": verdict["warnings"],
-            "wall_seconds": sum(seg["wall_seconds"] for seg in segments),
-            "normalisation": NORMALISATION_TEXT,
-            "version": __version__,
-            "config_hash": run_hash(spec),
-            "provenance": provenance(spec),
-        }
-        if not (math.isfinite(summary["energy"]) and np.all(np.isfinite(density)) and np.all(np.isfinite(field))):
-            raise RunError(f"the final state's energy is non-finite (E = {summary['energy']}): "
-                           f"{first_non_finite(model, field)}; no result was written")
-        write_result(out / RESULT, field, grid, density, summary, result.history.as_arrays(),
-                     spec.text, __version__)
-        write_xdmf(out / XDMF, out / RESULT, grid)
-        resumable = checkpoint_path.exists() and stopped_by in ("energy", "max_steps")
-        if resumable:  # kept: --resume continues the run exactly, with more steps or a tighter rule
-            summary["continue_with"] = continue_hint(stopped_by, rule, out)
-        else:
-            checkpoint_path.unlink(missing_ok=True)
-        write_json(out / SUMMARY, summary)
-        return summary
-
-    try:
-        return finish()
-    except interrupts.Interrupted as stop:  # during the diagnostics: keep the relaxed state for --resume
-        segments.pop()  # the checkpoint's record writes this segment again, as interrupted
-        checkpoint(result.field, result.steps, result.history, {"evaluations": result.evaluations}, "interrupted")
-        stop.checkpoint, stop.step = checkpoint_path, result.steps
-        raise
+        raise interrupts.Interrupted(interrupts.requested(), start.checkpoint_path, result.steps)
+    start.segments.append(_segment(start.started, start.step, result.steps, result.evaluations,
+                                   time.perf_counter() - start.clock, result.status))
+    return result, coarse
 
 
+@dataclass(frozen=True)
+class Measured:
+    """The relaxed state's measurements (`measure`)."""
+
+    energies: dict
+    virial: dict
+    charge: float
+    density: np.ndarray
+    curves: dict
+    evidence: Evidence
+    wall_seconds: float
+
+
+def measure(spec: RunSpec, start: Start, result, coarse: dict | None, symmetric: bool, stream) -> Measured:
+    """Energies, virial, charge, density and curves of the relaxed state, the Hessian and
+    the saddle check where asked for, gathered into the verdict's `Evidence`."""
+    model, grid, rule = start.model, start.grid, start.rule
+    field = result.field
+    energies = model.energies(field)
+    virial = model.virial(field)
+    charge = hopf_charge(field, grid)
+    density = model.energy_density(field)
+    if not result.history.monitor_step or result.history.monitor_step[-1] != result.steps:
+        # the final state's diagnostics, from the values just computed
+        final = snapshot(field, grid, density)
+        final.update(virial=virial["total"], hopf_charge=charge)
+        result.history.append_monitor(result.steps, final)
+    hessian = None
+    if spec.relax.hessian_modes and result.converged:
+        if stream is not None:
+            print(f"  Hessian: lowest {spec.relax.hessian_modes} modes by Lanczos ...", file=stream, flush=True)
+        hessian = lowest_modes(model, field, spec.relax.hessian_modes)
+    curves = solution_label(field, grid, density=density)
+    context = {
+        "initial_charge": start.initial_charge, "largest_cell": grid.largest_cell() if grid.stretched else None,
+        "coarse_discarded": coarse["reason"] if coarse is not None and not coarse["used"] else None,
+        "stopped_by": result.stopped_by, "max_force": result.max_force, "force_tol": rule.force_tol,
+        "energy_tol": rule.energy_tol, "patience": rule.patience, "open_chains": curves["open_chains"],
+        "linking_charge": curves["linking_charge"]}
+
+    def evidence_with(saddle=None):
+        return gather(field, grid, density, charge, spec.initial.expected_charge, virial["total"], result.status,
+                      result.history.as_arrays(), result.history.energy, start.probe["negative"], hessian, saddle,
+                      **context)
+
+    evidence = evidence_with()
+    # only a state that would be called stable needs the evidence that it is no saddle
+    if decide(evidence).verdict == Outcome.STABLE and spec.relax.saddle_check and symmetric:
+        with interrupts.deferred():
+            saddle = saddle_check(model, field, result.energy, rule, spec, stream)
+        if saddle is None:  # interrupted (the caller checkpoints the relaxed state)
+            raise interrupts.Interrupted(interrupts.requested())
+        evidence = evidence_with(saddle)
+    start.segments[-1]["wall_seconds"] = time.perf_counter() - start.clock  # diagnostics included
+    return Measured(energies, virial, charge, density, curves, evidence,
+                    sum(seg["wall_seconds"] for seg in start.segments))
+
+
+def write(spec: RunSpec, out: Path | None, start: Start, result, state: Measured, summary: dict) -> None:
+    """Check the final state is finite, then write result.h5, the XDMF sidecar and
+    summary.json; keep the checkpoint of a run a rule stopped short of the force rule
+    (``continue_with`` in the summary says how to go on)."""
+    field, grid = result.field, start.grid
+    if not (math.isfinite(summary["energy"]) and np.all(np.isfinite(state.density)) and np.all(np.isfinite(field))):
+        raise RunError(f"the final state's energy is non-finite (E = {summary['energy']}): "
+                       f"{first_non_finite(start.model, field)}; no result was written")
+    if out is None:
+        return
+    write_result(out / RESULT, field, grid, state.density, summary, result.history.as_arrays(),
+                 spec.text, __version__)
+    write_xdmf(out / XDMF, out / RESULT, grid)
+    checkpoint_path = start.checkpoint_path
+    resumable = checkpoint_path.exists() and result.stopped_by in ("energy", "max_steps")
+    if resumable:  # kept: --resume continues the run exactly, with more steps or a tighter rule
+        summary["continue_with"] = continue_hint(result.stopped_by, start.rule, out)
+    else:
+        checkpoint_path.unlink(missing_ok=True)
+    write_json(out / SUMMARY, summary)

@@ -36,12 +36,11 @@ from solitons.axial.model import (
     to_3d,
 )
 from solitons.config import RunSpec
-from solitons.io.provenance import provenance, run_hash
 from solitons.io.results import (
-    NORMALISATION_TEXT,
     RESULT,
     SUMMARY,
     XDMF,
+    as_json,
     check_output_dir,
     prepare_output_dir,
     stale_temporaries,
@@ -49,14 +48,12 @@ from solitons.io.results import (
     write_result,
     write_xdmf,
 )
-from solitons.judge.diagnose import assess, stopping_record
+from solitons.judge.diagnose import bounded_below_notice, decide, gather
 from solitons.judge.outcomes import Outcome
 from solitons.measure.stability import probe_density
+from solitons.record import Result
 from solitons.relaxation.minimise import minimise
-from solitons.reporting import Progress, curve_summary, describe_model
-
-AXIAL_CAVEAT = ("axial minimum: stable within the axial ansatz only; in 3D it may be a saddle. Test it in 3D "
-                "from this result: initial.family = \"result\", initial.file = \"{path}\", initial.noise = 0.02")
+from solitons.reporting import Progress, describe_model, run_summary
 
 
 def make_axial_grid(spec: RunSpec) -> AxialGrid:
@@ -88,18 +85,19 @@ def axial_start(spec: RunSpec, grid: AxialGrid) -> np.ndarray:
     return m
 
 
-def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwrite: bool = False,
-                stream: TextIO | None = sys.stderr) -> dict:
-    """Relax on the half plane and write the run's files (see the module docstring).
-    ``resume`` is refused: axial runs take seconds and keep no checkpoint."""
+def relax_axial(spec: RunSpec, out_dir: str | Path | None, resume: bool = False, overwrite: bool = False,
+                stream: TextIO | None = sys.stderr) -> Result:
+    """Relax on the half plane and write the run's files (see the module docstring; none
+    when ``out_dir`` is None).  Returns the record of the rotated-out state.  ``resume``
+    is refused: axial runs take seconds and keep no checkpoint."""
     from solitons.measure.knots import solution_label
-    from solitons.model.energy import kernel_couplings
 
-    out = Path(out_dir)
-    check_output_dir(out)
+    out = Path(out_dir) if out_dir is not None else None
+    if out is not None:
+        check_output_dir(out)
     if resume:
         raise RunError("axial runs keep no checkpoint (they take seconds): run again without --resume")
-    if (out / RESULT).exists() and not overwrite:
+    if out is not None and (out / RESULT).exists() and not overwrite:
         raise RunError(f"{out / RESULT} exists; pass --overwrite to replace it")
     grid = make_axial_grid(spec)
     grid3 = embedding_grid(make_grid(spec))
@@ -110,13 +108,18 @@ def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwr
         raise RunError(str(error)) from None
     model = AxialModel(terms, grid, spec.grid.scheme)
     start = axial_start(spec, grid)
-    prepare_output_dir(out)
-    for stale in stale_temporaries(out):
-        stale.unlink(missing_ok=True)
+    if out is not None:
+        prepare_output_dir(out)
+        for stale in stale_temporaries(out):
+            stale.unlink(missing_ok=True)
     relax_spec = spec.relax
     rule = relax_spec.stopping_rule()
     expected = spec.initial.expected_charge
     initial_charge = hopf_charge(start, grid)
+    probe = probe_density(model.terms)
+    notice = bounded_below_notice(probe)
+    if notice and stream is not None:
+        print(notice, file=stream, flush=True)
     if stream is not None:
         rho, z = grid.axes()
         print(f"relaxing Q = {expected} ({spec.initial.description}) in the axial mode: half plane "
@@ -124,12 +127,6 @@ def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwr
               f"{', stretch ' + str(grid.stretch) if any(grid.stretch) else ''}, winding {grid.winding}, "
               f"{spec.grid.scheme}-order scheme, method {relax_spec.method}", file=stream, flush=True)
         print(f"  model: {describe_model(model)}", file=stream, flush=True)
-    probe = probe_density(model.terms)
-    if probe["negative"] and stream is not None:
-        print("WARNING: the energy density is negative for some local fields "
-              f"(quartic part a = {probe['quartic']['a']:g}, b = {probe['quartic']['b']:g}; "
-              "bounded needs b >= 0 and a + 4b >= 0): the energy may not be bounded below",
-              file=stream, flush=True)
     energy0, _ = model.evaluate(start)
     if not np.isfinite(energy0):
         raise RunError(f"the initial data's energy is non-finite (E = {energy0}); nothing was written")
@@ -148,62 +145,27 @@ def relax_axial(spec: RunSpec, out_dir: str | Path, resume: bool = False, overwr
     charge = hopf_charge(m, grid)
     field3 = to_3d(m, grid, grid3)
     density3 = density_to_3d(density, grid, grid3)
-    verdict = assess(field3, grid3, density3, charge, expected, virial["total"], result.status,
-                     None, result.history.energy, probe["negative"])
-    if verdict["verdict"] == Outcome.STABLE:
-        verdict["warnings"].append(AXIAL_CAVEAT.format(path=out / RESULT))
-    if abs(initial_charge - expected) > 0.02 * expected:
-        verdict["warnings"].append(f"the initial data measures Q = {initial_charge:.4f} against the family's "
-                                   f"{expected}: the half plane is too coarse or too small for this size")
-    stopped_by = result.stopped_by
-    stop_warnings = stopping_record(stopped_by, result.max_force, relax_spec.force_tol,
-                                                relax_spec.energy_tol, relax_spec.patience)
-    verdict["warnings"] += stop_warnings
     curves = solution_label(field3, grid3, density=density3)
-    summary = {
-        "energy": float(sum(energies.values())),
-        "terms": energies,
-        "hopf_charge": charge,
-        "expected_charge": expected,
-        "initial_charge": initial_charge,
-        "family": spec.initial.description,
-        "label": curves["label"],
-        "curves": curve_summary(curves),
-        "virial": virial["total"],
-        "virial_per_axis": virial["per_axis"],
-        "converged": result.converged,
-        "status": str(result.status),
-        "stopped_by": stopped_by,
-        "iterations": result.steps,
-        "evaluations": result.evaluations,
-        "segments": [],
-        "max_force": result.max_force,
-        "symmetry": "axial",
-        "axial": {"shape": list(grid.shape), "spacing": list(grid.spacing), "stretch": list(grid.stretch),
-                  "winding": grid.winding, "rho_max": float(grid.axes()[0][-1]),
-                  "virial_rho": virial["rho"], "virial_z": virial["z"]},
-        "grid": {"shape": list(grid3.shape), "spacing": list(grid3.spacing), "origin": list(grid3.origin),
-                 "boundary": grid3.boundary, "stretch": list(grid3.stretch), "scheme": spec.grid.scheme,
-                 "box_side": list(grid3.side)},
-        "method": relax_spec.method,
-        "backend": "jax (axial half plane)",
-        "model": describe_model(model),
-        "plain_model": kernel_couplings(model.terms) == (1.0, 1.0),
-        "bounded_below_probe": probe,
-        "verdict": str(verdict["verdict"]),
-        "evidence": verdict["evidence"],
-        "warnings": verdict["warnings"],
-        "wall_seconds": time.perf_counter() - clock,
-        "normalisation": NORMALISATION_TEXT,
-        "version": __version__,
-        "config_hash": run_hash(spec),
-        "provenance": provenance(spec),
-    }
+    evidence = gather(field3, grid3, density3, charge, expected, virial["total"], result.status, None,
+                      result.history.energy, probe["negative"], initial_charge=initial_charge,
+                      stopped_by=result.stopped_by, max_force=result.max_force, force_tol=rule.force_tol,
+                      energy_tol=rule.energy_tol, patience=rule.patience, axial=True,
+                      result_path=str(out / RESULT) if out is not None else "(not written)")
+    decision = decide(evidence)
+    axial = {"shape": list(grid.shape), "spacing": list(grid.spacing), "stretch": list(grid.stretch),
+             "winding": grid.winding, "rho_max": float(grid.axes()[0][-1]),
+             "virial_rho": virial["rho"], "virial_z": virial["z"]}
+    summary = run_summary(spec, model, grid3, energies=energies, charge=charge, initial_charge=initial_charge,
+                          curves=curves, virial=virial, result=result, segments=[],
+                          backend="jax (axial half plane)", probe=probe, decision=decision,
+                          wall_seconds=time.perf_counter() - clock, symmetry="axial", axial=axial)
     if not (np.isfinite(summary["energy"]) and np.all(np.isfinite(m))):
         raise RunError(f"the final state's energy is non-finite (E = {summary['energy']}); no result was written")
-    write_result(out / RESULT, field3, grid3, density3, summary, result.history.as_arrays(), spec.text, __version__,
-                 axial={"field": m, "energy_density": density, "spacing": grid.spacing, "stretch": grid.stretch,
-                        "winding": grid.winding})
-    write_xdmf(out / XDMF, out / RESULT, grid3)
-    write_json(out / SUMMARY, summary)
-    return summary
+    history = result.history.as_arrays()
+    if out is not None:
+        write_result(out / RESULT, field3, grid3, density3, summary, history, spec.text, __version__,
+                     axial={"field": m, "energy_density": density, "spacing": grid.spacing,
+                            "stretch": grid.stretch, "winding": grid.winding})
+        write_xdmf(out / XDMF, out / RESULT, grid3)
+        write_json(out / SUMMARY, summary)
+    return Result(as_json(summary), field3, grid3, density3, history, spec.text, out)

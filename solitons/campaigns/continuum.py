@@ -135,6 +135,7 @@ def publish_finest(report: dict, out: Path, point_hash: str) -> None:
     summary["continuum"] = {"order": report["order"], "warnings": report["warnings"],
                             "verdicts": [r["verdict"] for r in report["levels"]],
                             "spacings": [r["spacing"] for r in report["levels"]],
+                            "energies": [r["energy"] for r in report["levels"]],
                             **{f"{name}_limit": fit["limit"] for name, fit in report["fits"].items()},
                             **{f"{name}_error": fit["error"] for name, fit in report["fits"].items()}}
     summary["warnings"] = list(summary["warnings"]) + report["warnings"]

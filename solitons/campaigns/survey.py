@@ -40,7 +40,7 @@ from solitons.relaxation.initial import describe
 from solitons.io.provenance import physics_hash
 from solitons.run import RESULT, SUMMARY, run_hash
 
-SURVEY_KEYS = ("charges", "seeds", "families", "continuum")
+SURVEY_KEYS = ("charges", "seeds", "families", "continuum", "decide")
 
 # Ward's conjectured bound E >= Q^(3/4) (Ward, Nonlinearity 12 (1999) 241, memory) and the
 # Vakulenko-Kapitanski type bound E >= (3/16)^(3/8) Q^(3/4) (Kundu-Rybakov constant,
@@ -187,7 +187,10 @@ def read_survey(path: str | Path, overrides=()) -> tuple[dict, list]:
         from solitons.campaigns.continuum import validate_spacings
 
         continuum = validate_spacings(source, "survey.continuum", table["continuum"])
-    return {"charges": charges, "seeds": seeds, "spec": base, "continuum": continuum}, tasks
+    from solitons.campaigns.decide import read_decide
+
+    decide = read_decide(source, table.get("decide"))
+    return {"charges": charges, "seeds": seeds, "spec": base, "continuum": continuum, "decide": decide}, tasks
 
 
 def task_priority(charge: int, spec) -> int:
@@ -254,10 +257,49 @@ def run_survey(path, out_dir, overrides=(), scheduler: str | None = None, worker
                              E_inf_error=summary["continuum"]["energy_error"])
         rows.append(entry)
     mark_lowest(rows)
-    write_table_files(rows, out, table["spec"])
+    found = None
+    if table["decide"]:
+        found = deciding_stage(rows, entries, names, table, out, base_dir, scheduler, workers, stream, table_only)
+    write_table_files(rows, out, table["spec"], found, catalogue_seconds(out))
     if figure:
         plot_survey(rows, out / "survey.png", table["spec"])
     return rows
+
+
+def deciding_stage(rows, entries, names, table, out: Path, base_dir: Path, scheduler, workers, stream,
+                   table_only: bool) -> list[dict]:
+    """`solitons.campaigns.decide`: the continuum and box runs of the candidates, then the
+    ordering per charge.  Returns the per-charge decisions."""
+    from solitons.campaigns import decide as stage
+
+    settings = table["decide"]
+    chosen = stage.candidates(rows, settings["margin"])
+    specs = {name: spec for (_, _, _, spec), name in zip(entries, names)}
+    tasks = stage.stage_tasks(out, chosen, specs, settings, base_dir)
+    done = catalogue.finished(out / catalogue.CATALOGUE)
+    todo = [t for t in tasks if not (done.get(t["task"]) and (out / t["task"] / SUMMARY).exists()
+                                     and done[t["task"]]["config_hash"] == run_hash(load(None, text=t["text"],
+                                                                                         base_dir=base_dir)))]
+    if stream is not None:
+        print(f"survey, deciding stage: {len(chosen)} states within {100 * settings['margin']:g} % of the lowest "
+              f"at their charge; {len(todo)} of {len(tasks)} continuum and box runs to do (h = "
+              f"{', '.join(f'{h:g}' for h in settings['spacings'])}; box x {settings['box_factor']:g})",
+              file=stream, flush=True)
+    if not table_only and todo:
+        run_tasks(todo, scheduler=scheduler, workers=workers, stream=stream,
+                  describe=lambda row: f"{row['task']} {row.get('verdict') or row.get('status')}")
+    stage.attach(out, chosen, tasks, base_dir)
+    found = stage.decisions(rows)
+    if stream is not None:
+        for d in found:
+            print(f"  Q = {d['Q']}: {'decided' if d['decided'] else 'UNDECIDED'} ({d['reason']})",
+                  file=stream, flush=True)
+    return found
+
+
+def catalogue_seconds(out: Path) -> float:
+    """The summed wall time of every run the catalogue holds (all stages, all invocations)."""
+    return float(sum(row.get("wall_seconds") or 0.0 for row in catalogue.rows(out / catalogue.CATALOGUE)))
 
 
 def mark_lowest(rows: list[dict]) -> None:
@@ -316,17 +358,30 @@ def converged_text(row: dict, force_tol: float) -> str:
     return "yes"
 
 
-def write_table_files(rows: list[dict], out: Path, spec) -> None:
+def write_table_files(rows: list[dict], out: Path, spec, decisions: list[dict] | None = None,
+                      seconds: float | None = None) -> None:
+    """survey.csv, survey.md and, with a deciding stage, decisions.json (per charge)."""
     fields = ["Q", "family", "seed", "label", "energy", "energy_per_q34", "virial", "measured_Q", "verdict",
-              "converged", "stopped_by", "max_force", "lowest", "iterations", "wall_seconds", "grid", "status", "error", "warnings", "task"]
+              "converged", "stopped_by", "max_force", "lowest", "iterations", "wall_seconds", "grid", "status",
+              "error", "warnings", "task"]
+    if decisions is not None:
+        fields += ["candidate", "E_inf", "lattice_error", "box_error", "E_inf_error", "decide_notes"]
     tmp = out / ".survey.csv.tmp"
     with open(tmp, "w", newline="") as handle:
         writer = csv.DictWriter(handle, fieldnames=fields, extrasaction="ignore")
         writer.writeheader()
         writer.writerows(rows)
     tmp.replace(out / "survey.csv")
+    text = markdown_table(rows, spec)
+    if decisions is not None:
+        from solitons.campaigns.decide import decisions_markdown
+
+        text += decisions_markdown(decisions, rows, seconds or 0.0)
+        tmp = out / ".decisions.json.tmp"
+        tmp.write_text(json.dumps({"decisions": decisions, "compute_seconds": seconds}, indent=2, default=str))
+        tmp.replace(out / "decisions.json")
     tmp = out / ".survey.md.tmp"
-    tmp.write_text(markdown_table(rows, spec))
+    tmp.write_text(text)
     tmp.replace(out / "survey.md")
 
 

@@ -145,6 +145,12 @@ def atomic_write_text(path: str | Path, text: str) -> None:
         tmp.unlink(missing_ok=True)
 
 
+def as_json(data: dict) -> dict:
+    """``data`` as `write_json` writes it (plain JSON types, non-finite numbers None): a
+    record kept in memory then equals one read back from its files."""
+    return json.loads(json.dumps(finite_json(data), allow_nan=False))
+
+
 def write_json(path: str | Path, data: dict) -> None:
     """Atomic, strict JSON (non-finite numbers written as null)."""
     atomic_write_text(path, json.dumps(finite_json(data), indent=2, allow_nan=False) + "\n")

@@ -181,6 +181,17 @@ class TermKind:
     needs_laplacian: bool = False
     parameters: tuple[tuple[str, float], ...] = ()
     source: str = ""
+    # lower bounds of the parameters: (name, bound, strict, why); the configuration refuses
+    # a value below (strict: at or below) with the reason
+    limits: tuple[tuple[str, float, bool, str], ...] = ()
+
+    def violations(self, values: dict) -> list[tuple[str, float, str]]:
+        """(parameter, value, reason) for each given value outside its limit."""
+        found = []
+        for name, bound, strict, why in self.limits:
+            if name in values and (values[name] <= bound if strict else values[name] < bound):
+                found.append((name, values[name], why))
+        return found
 
 
 BUILTIN_TERMS: dict[str, TermKind] = {
@@ -192,14 +203,18 @@ BUILTIN_TERMS: dict[str, TermKind] = {
         TermKind("dirichlet_squared", 4, "(sum_i d_i n . d_i n)^2", dirichlet_squared_density),
         TermKind("strain_squared", 4, "sum_ij (d_i n . d_j n)^2", strain_squared_density),
         TermKind("potential", 0, "mass^2 (1 - n3)^power", potential_density, potential_lattice,
-                 parameters=(("mass", 1.0), ("power", 1.0))),
+                 parameters=(("mass", 1.0), ("power", 1.0)),
+                 limits=(("power", 1.0, False, "must be at least 1 (smooth at the vacuum)"),)),
         TermKind("laplacian_squared", 4, "|sum_i d_i d_i n|^2", laplacian_squared_density,
                  laplacian_squared_lattice, needs_laplacian=True),
         TermKind("sextic", 6, "H^2 sum_i d_i n . d_i n", sextic_density),
         TermKind("chiral", 1, "n . curl n", chiral_density),
         TermKind("log_quartic", None, "H^2 (c0 + c1 ln((H^2 + delta scale^4) / scale^4))",
                  log_quartic_density,
-                 parameters=(("c0", 1.0), ("c1", 0.1), ("scale", 1.0), ("delta", 1e-8))),
+                 parameters=(("c0", 1.0), ("c1", 0.1), ("scale", 1.0), ("delta", 1e-8)),
+                 limits=tuple((name, 0.0, True, "must be positive (the logarithm of H^2 + delta scale^4 must stay "
+                                                "finite where H^2 = 0, i.e. in the vacuum)")
+                              for name in ("scale", "delta"))),
     )
 }
 

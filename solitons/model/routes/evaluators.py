@@ -25,7 +25,7 @@ import numpy as np
 
 from solitons.model import reference
 from solitons.model.reference import NORMALISATION, kernel_couplings
-from solitons.model.routes import kernels, pointwise, staged
+from solitons.model.routes import fast_terms, kernels, pointwise, staged
 from solitons.model.terms import BUILTIN_TERMS, Term
 
 # the pointwise terms on the compiled route (False: jax, the route before it; kept to
@@ -127,27 +127,14 @@ def _staged_coefficients(terms: tuple[Term, ...]):
     coefs = np.zeros(len(staged.COEFFICIENTS))
     slots: dict[str, Term] = {}
     rest = []
-    index = {name: i for i, name in enumerate(staged.COEFFICIENTS)}
     for term in terms:
         kind = term.kind.name
         builtin = BUILTIN_TERMS.get(kind) is term.kind
-        if not builtin or kind in slots or (kind not in staged.EXTRA_KINDS and kind not in ("dirichlet",
-                                                                                              "skyrme_faddeev")):
+        if not builtin or kind in slots or kind not in fast_terms.FAST_TERMS:
             rest.append(term)
             continue
         slots[kind] = term
-        values = term.parameter_values()
-        if kind == "potential":
-            coefs[index["potential"]] = term.coupling * values["mass"] ** 2
-            coefs[index["potential_power"]] = values["power"]
-        elif kind == "log_quartic":
-            coefs[index["log_quartic"]] = term.coupling
-            coefs[index["log_c0"]] = values["c0"]
-            coefs[index["log_c1"]] = values["c1"]
-            coefs[index["log_scale4"]] = values["scale"] ** 4
-            coefs[index["log_delta"]] = values["delta"]
-        else:
-            coefs[index[kind]] = term.coupling
+        fast_terms.pack(coefs, kind, term.coupling, term.parameter_values())
     return coefs, slots, tuple(rest)
 
 

@@ -17,7 +17,8 @@ row of sites (fixed x-plane i and row j, all k) goes through three stages:
    h_a)``, so that h_a dE/dh_a = E - Q_a (derived: each difference along a carries 1/h_a,
    the Laplacian's axis-a part 1/h_a^2 (1/h_a for the stretched correction), the cell
    volume h_x h_y h_z).  A term's row function is independent of the others: adding a
-   built-in term to this route is one row function, one slot in `EXTRA_KINDS`, one test.
+   built-in term to this route is one record in `solitons.model.routes.fast_terms`, one row
+   function and its branch, one test.
 3. The difference rows are gathered into dE/dn by `solitons.model.routes.kernels._plane_gradient` (or its narrow form); the n and Laplacian
    rows by ``_plane_gradient_extra`` (the Laplacian with the transposed central stencil).
 
@@ -41,15 +42,19 @@ from __future__ import annotations
 import numba as nb
 import numpy as np
 
+from solitons.model.routes import fast_terms
 from solitons.model.routes.kernels import _FAST, _site, _wrap_plane_frame, gather_plane
 
-# correction kinds with a row function, in the order of their energy slots
-EXTRA_KINDS = ("dirichlet_squared", "strain_squared", "potential", "laplacian_squared", "sextic", "chiral",
-               "log_quartic")
-# coefficient vector: c2, c4, then per extra kind its coupling (and constants)
-COEFFICIENTS = ("dirichlet", "skyrme_faddeev", "dirichlet_squared", "strain_squared", "potential",
-                "potential_power", "laplacian_squared", "sextic", "chiral", "log_quartic", "log_c0", "log_c1",
-                "log_scale4", "log_delta")
+# the layout of the coefficient vector and the energy slots, from the records of the fast
+# terms (c2, c4, then per extra kind its coupling and constants)
+COEFFICIENTS, EXTRA_KINDS, _EXTRA_INDEX = fast_terms.COEFFICIENTS, fast_terms.EXTRA_KINDS, fast_terms.EXTRA_INDEX
+# the positions the row loop reads by number (numba compiles them in): checked at import
+_POTENTIAL_POWER, _LOG_CONSTANTS = 5, (10, 11, 12, 13)
+if (COEFFICIENTS.index("potential_power") != _POTENTIAL_POWER
+        or tuple(COEFFICIENTS.index(n) for n in ("log_c0", "log_c1", "log_scale4", "log_delta")) != _LOG_CONSTANTS
+        or len(EXTRA_KINDS) != 7):
+    raise ImportError("solitons.model.routes.fast_terms changed the coefficient layout: update the row loop "
+                      "of solitons.model.routes.staged (_plane_staged) and its constant positions")
 SLOTS = 6 + len(EXTRA_KINDS) + 3  # base pieces, extra energies, extra Q_a
 LOCAL_ROWS, LAPLACIAN_ROWS = 21, 33  # staged rows without / with the Laplacian
 DERIVATIVE_ROWS = 24
