@@ -22,11 +22,11 @@ finally:
 
 __version__ = "0.1.0"
 
-__all__ = ["Result", "gallery", "load", "relax", "scan", "survey"]
+__all__ = ["Result", "evaluate", "gallery", "load", "relax", "scan", "survey"]
 
 
 def __getattr__(name):
-    """`relax`, `load`, `Result`, `scan`, `survey` and `gallery` (solitons.api), imported on first use so that the
+    """`relax`, `evaluate`, `load`, `Result`, `scan`, `survey` and `gallery` (solitons.api), imported on first use so that the
     command's --help and its signal handling start before numba loads."""
     if name in __all__:
         from solitons import api

@@ -1,5 +1,5 @@
-"""The Python entry points, for notebooks and scripts: `relax`, `load`, `Result`, `scan`,
-`survey` and `gallery`.
+"""The Python entry points, for notebooks and scripts: `relax`, `evaluate`, `load`,
+`Result`, `scan`, `survey` and `gallery`.
 
     import solitons
     result = solitons.relax(grid={"points": 41, "spacing": 0.25})   # Q = 1, plain model
@@ -27,9 +27,10 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
+from solitons.lattice.grid import Grid
 from solitons.record import Result
 
-__all__ = ["Result", "gallery", "load", "relax", "scan", "survey"]
+__all__ = ["Result", "evaluate", "gallery", "load", "relax", "scan", "survey"]
 
 
 def load(path: str | Path) -> Result:
@@ -77,20 +78,52 @@ def _spec(config, tables: dict[str, Any]):
 
 
 def relax(config: str | Path | dict | None = None, out: str | Path | None = None, *, resume: bool = False,
-          overwrite: bool = False, progress: bool = False, **tables) -> Result:
+          overwrite: bool = False, progress: bool = False, initial=None, **tables) -> Result:
     """Relax one configuration and return its Result.
 
     config: a TOML file path, TOML text, a dict of tables, or None (the defaults).
     out: a directory for result.h5, summary.json and the XDMF sidecar (none is written
     when None).  resume / overwrite: as the command's --resume / --overwrite.
-    progress: print progress lines to stderr.  Keyword arguments override tables, e.g.
+    progress: print progress lines to stderr.  initial: a field of shape
+    (Nx, Ny, Nz, 3) on the configured grid to start from instead of the configured
+    initial data (the configuration's [initial] still names the expected charge).
+    Keyword arguments override tables, e.g.
     ``grid={"points": 48}``, ``relax={"max_steps": 500}``,
     ``terms={"mass": {"kind": "potential", "coupling": 0.5}}``."""
     from solitons.run import relax_record
 
     spec = _spec(config, tables)
     stream = sys.stderr if progress else None
-    return relax_record(spec, out, resume=resume, overwrite=overwrite, stream=stream)
+    if initial is not None:
+        from solitons.assemble import make_grid
+        from solitons.evaluation import check_field
+
+        try:
+            initial = check_field(initial, make_grid(spec))
+        except ValueError as error:
+            from solitons.run import RunError
+
+            raise RunError(f"initial: {error}") from None
+    return relax_record(spec, out, resume=resume, overwrite=overwrite, stream=stream, initial_field=initial)
+
+
+def evaluate(field, config: str | Path | dict | None = None, *, grid: Grid | dict | None = None, **tables):
+    """The energy per term, density, Hopf charge, virial, largest and RMS force, label and
+    trust measures of ``field`` (an (Nx, Ny, Nz, 3) array, normalised to unit length)
+    without relaxing it: a `solitons.evaluation.Evaluation`.
+
+    The model (terms, scheme) and, unless ``grid`` is given, the grid come from the
+    configuration as in `relax` (``grid={"points": 41, "spacing": 0.25}``,
+    ``terms={...}``); ``grid`` may instead be a `solitons.lattice.grid.Grid` of the field's
+    own sites."""
+    from solitons.assemble import make_grid, make_model
+    from solitons.evaluation import evaluate_field
+
+    if isinstance(grid, dict):  # the [grid] table, as in `relax`
+        tables, grid = {**tables, "grid": grid}, None
+    spec = _spec(config, tables)
+    sites = grid if grid is not None else make_grid(spec)
+    return evaluate_field(make_model(spec, sites), field)
 
 
 def _campaign_file(config, scratch: Path, name: str) -> Path:

@@ -37,8 +37,9 @@ def test_deciding_stage_orders_resumes_and_bounds_the_box(tmp_path):
     path = tmp_path / "s.toml"
     path.write_text(SURVEY + "decide = { spacings = [0.45, 0.4, 0.35], box_factor = 1.3 }\n")
     out = tmp_path / "out"
-    rows = run_survey(path, out, scheduler="inline", stream=None, figure=False)
+    rows = run_survey(path, out, scheduler="inline", stream=None, figure=True)
     (row,) = rows
+    assert (out / "survey.png").stat().st_size > 0
     assert row["candidate"] and row["E_inf"] is not None
     stage = json.loads((out / f"{row['task']}/continuum/summary.json").read_text())["continuum"]
     assert row["E_inf"] < min(stage["energies"])

@@ -208,8 +208,8 @@ def decisions_markdown(found: list[dict], rows: list[dict], seconds: float) -> s
         lines.append(f"| {d['Q']} | {d['lowest_label'] or '-'} ({d['lowest_family'] or '-'}) | "
                      f"{_num(d['E_inf'], '.6f')} | {_num(d['E_inf_error'], '.1e')} | {d['next_label'] or '-'} | "
                      f"{_num(d.get('next_E_inf'), '.6f')} | {_num(d['gap'], '.2e')} | {word}: {d['reason']} |")
-    lines += ["", f"Total compute time of the campaign (every run, both stages, all invocations): "
-              f"{seconds / 3600:.2f} h ({seconds:.0f} s, the runs' wall times summed)."]
+    lines += ["", (f"Total compute time of the campaign (every run, both stages, all invocations): "
+                   f"{seconds / 3600:.2f} h ({seconds:.0f} s, the runs' wall times summed).")]
     return "\n".join(lines) + "\n"
 
 

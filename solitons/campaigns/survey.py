@@ -386,8 +386,9 @@ def write_table_files(rows: list[dict], out: Path, spec, decisions: list[dict] |
 
 
 def plot_survey(rows: list[dict], path: Path, spec) -> Path:
-    """E / Q^(3/4) against Q: every run, the lowest per charge, the two bounds and the
-    published Q = 1, 2 values."""
+    """E / Q^(3/4) against Q: every run, the lowest per charge, the continuum limits of
+    the deciding stage with their error bars, the two bounds and the published Q = 1, 2
+    values."""
     from solitons.views.plots import plt, save_figure
 
     fig, ax = plt.subplots(figsize=(7.5, 5), dpi=120, constrained_layout=True)
@@ -402,6 +403,12 @@ def plot_survey(rows: list[dict], path: Path, spec) -> Path:
         for r in best:
             ax.annotate(r["label"].split(" (")[0], (r["Q"], r["energy_per_q34"]), textcoords="offset points",
                         xytext=(4, 6), fontsize=7, rotation=30)
+    limits = [r for r in done if r.get("E_inf") is not None]
+    if limits:  # the deciding stage: continuum limits with their error bars (lattice + box)
+        ax.errorbar([r["Q"] + 0.12 for r in limits], [r["E_inf"] / r["Q"] ** 0.75 for r in limits],
+                    yerr=[(r.get("E_inf_error") or 0.0) / r["Q"] ** 0.75 for r in limits], fmt="D",
+                    color="tab:purple", ms=4, capsize=3, label="continuum limit E_inf (lattice + box error)",
+                    zorder=5)
     q_line = np.linspace(0.8, max([r["Q"] for r in rows]) + 0.2, 2)
     ax.plot(q_line, [WARD] * 2, "k--", lw=1, label="Ward's conjectured bound, E = Q^(3/4)")
     ax.plot(q_line, [VAKULENKO_KAPITANSKI] * 2, "k:", lw=1,
