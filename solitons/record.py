@@ -60,6 +60,12 @@ class Result:
         return list(self.summary["warnings"])
 
     @property
+    def inertia(self) -> dict | None:
+        """U (isospin), W (mixed), V (spin, about the energy centre) and the 4 x 4 matrix
+        of `solitons.measure.inertia`, inside the box (None for results without them)."""
+        return self.summary.get("inertia")
+
+    @property
     def converged(self) -> bool:
         return bool(self.summary["converged"])
 

@@ -47,6 +47,7 @@ from solitons.io.results import (
 from solitons.judge.diagnose import Evidence, bounded_below_notice, decide, gather, snapshot
 from solitons.judge.outcomes import Outcome
 from solitons.lattice.grid import Grid
+from solitons.measure.inertia import model_inertia
 from solitons.measure.knots import solution_label
 from solitons.measure.stability import lowest_modes, probe_density
 from solitons.measure.topology import hopf_charge
@@ -295,7 +296,7 @@ def _pipeline(spec: RunSpec, out: Path | None, resume: bool, overwrite: bool, st
                               initial_charge=start.initial_charge, curves=state.curves, virial=state.virial,
                               result=result, segments=start.segments, backend=start.model.route.name,
                               probe=start.probe, decision=decision, wall_seconds=state.wall_seconds,
-                              coarse_stage=coarse)
+                              coarse_stage=coarse, inertia=state.inertia)
         write(spec, out, start, result, state, summary)
     except interrupts.Interrupted as stop:  # during the diagnostics: keep the relaxed state for --resume
         if start.checkpoint_path is not None:
@@ -445,6 +446,7 @@ class Measured:
     curves: dict
     evidence: Evidence
     wall_seconds: float
+    inertia: dict
 
 
 def measure(spec: RunSpec, start: Start, result, coarse: dict | None, symmetric: bool, stream) -> Measured:
@@ -487,9 +489,10 @@ def measure(spec: RunSpec, start: Start, result, coarse: dict | None, symmetric:
         if saddle is None:  # interrupted (the caller checkpoints the relaxed state)
             raise interrupts.Interrupted(interrupts.requested())
         evidence = evidence_with(saddle)
+    inertia = model_inertia(np.asarray(field), grid, density, model.terms)
     start.segments[-1]["wall_seconds"] = time.perf_counter() - start.clock  # diagnostics included
     return Measured(energies, virial, charge, density, curves, evidence,
-                    sum(seg["wall_seconds"] for seg in start.segments))
+                    sum(seg["wall_seconds"] for seg in start.segments), inertia)
 
 
 def write(spec: RunSpec, out: Path | None, start: Start, result, state: Measured, summary: dict) -> None:
