@@ -16,7 +16,7 @@ Omega_2, Omega_3), with
 
 U = M_00 (isospin), W_k = M_0k (mixed), V_kl = M_kl (spin).  Derivatives are sixth-order
 central differences (the border continued by its own values, the vacuum of a fixed
-box); terms without derivatives (potentials) add nothing to T.  Pure: arrays in, numbers out.
+box; wrapped on a periodic one); terms without derivatives (potentials) add nothing to T.  Pure: arrays in, numbers out.
 """
 
 from __future__ import annotations
@@ -31,11 +31,12 @@ EXTENDED = ("dirichlet", "skyrme_faddeev")
 STATIC_ONLY = ("potential",)  # no derivatives: no kinetic energy
 
 
-def _derivative(f: np.ndarray, axis: int, h: float) -> np.ndarray:
-    """Sixth-order central difference along ``axis`` (edge values continued)."""
+def _derivative(f: np.ndarray, axis: int, h: float, periodic: bool = False) -> np.ndarray:
+    """Sixth-order central difference along ``axis`` (edge values continued, or wrapped
+    on a periodic grid)."""
     pad = [(0, 0)] * f.ndim
     pad[axis] = (3, 3)
-    g = np.pad(f, pad, mode="edge")
+    g = np.pad(f, pad, mode="wrap" if periodic else "edge")
     n = f.shape[axis]
 
     def shifted(s):
@@ -59,7 +60,7 @@ def inertia_tensors(field: np.ndarray, grid: Grid, density: np.ndarray, c2: floa
         raise ValueError("inertia tensors are computed on uniform grids only")
     n = np.asarray(field, dtype=np.float64)
     h = grid.spacing
-    d = [_derivative(n, a, h[a]) for a in range(3)]
+    d = [_derivative(n, a, h[a], grid.boundary == "periodic") for a in range(3)]
     centre = energy_centre(density, grid)
     x = [m - c for m, c in zip(grid.mesh(), centre)]
     e3 = np.array([0.0, 0.0, 1.0])
@@ -69,14 +70,16 @@ def inertia_tensors(field: np.ndarray, grid: Grid, density: np.ndarray, c2: floa
         axis[k] = 1.0
         velocity = np.cross(axis, np.stack(x, -1))  # (e_k x x)
         generators.append(-sum(velocity[..., a, None] * d[a] for a in range(3)))
-    crossed = [[np.cross(g, d[i]) for i in range(3)] for g in generators]
-    volume = float(np.prod(h))
-    m = np.zeros((4, 4))
+    sums = np.zeros((4, 4))
     for a in range(4):
         for b in range(a, 4):
-            integrand = c2 * np.sum(generators[a] * generators[b], axis=-1)
-            integrand = integrand + c4 * sum(np.sum(crossed[a][i] * crossed[b][i], axis=-1) for i in range(3))
-            m[a, b] = m[b, a] = 2.0 * NORMALISATION * volume * float(integrand.sum())
+            sums[a, b] += c2 * float(np.sum(generators[a] * generators[b]))
+    for i in range(3):  # one derivative at a time: four crossed arrays in memory, not twelve
+        crossed = [np.cross(g, d[i]) for g in generators]
+        for a in range(4):
+            for b in range(a, 4):
+                sums[a, b] += c4 * float(np.sum(crossed[a] * crossed[b]))
+    m = 2.0 * NORMALISATION * float(np.prod(h)) * (np.triu(sums) + np.triu(sums, 1).T)
     v = m[1:, 1:]
     return {"U": float(m[0, 0]), "W": m[0, 1:].tolist(), "V": v.tolist(), "matrix": m.tolist(),
             "principal_V": np.linalg.eigvalsh(v).tolist(), "centre": centre.tolist()}
