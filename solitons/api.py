@@ -92,6 +92,8 @@ def relax(config: str | Path | dict | None = None, out: str | Path | None = None
     ``terms={"mass": {"kind": "potential", "coupling": 0.5}}``."""
     from solitons.run import relax_record
 
+    if isinstance(initial, dict):  # the [initial] table, as any other keyword table
+        tables, initial = {**tables, "initial": initial}, None
     spec = _spec(config, tables)
     stream = sys.stderr if progress else None
     if initial is not None:

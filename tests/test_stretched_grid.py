@@ -247,7 +247,7 @@ def test_off_centre_soliton_moves_to_the_fine_cells_and_keeps_its_charge():
     origin after 400 steps, Q = 1.0000001).  The second-order scheme errs downwards: the
     same start slides into the coarse cells and unwinds (measured: Q = 0 after 49 steps),
     as reported for the former schemes on 49^3, h = 0.25."""
-    from solitons.judge.diagnose import _energy_per_site
+    from solitons.judge.evidence import _energy_per_site
 
     grid = Grid.centred(33, 0.3, "fixed", 2.0)
     start = add_noise(hopf_map(grid, 1.0, (0.6, 0.3, 0.0)), grid, 0.05, 4)
