@@ -19,7 +19,7 @@ import tomli_w
 from solitons.lattice.grid import BOUNDARIES
 from solitons.model.energy import BACKENDS, MIN_POINTS, SCHEMES
 from solitons.model.terms import BUILTIN_TERMS
-from solitons.relaxation.initial import FAMILIES, describe, expected_charge
+from solitons.relaxation.initial import FAMILIES, FILE_FAMILIES, describe, expected_charge
 from solitons.relaxation.minimise import METHODS, PRECONDITIONERS, StoppingRule
 
 DEFAULTS: dict[str, Any] = {
@@ -31,7 +31,8 @@ DEFAULTS: dict[str, Any] = {
     "terms": {"dirichlet": {"coupling": 1.0}, "skyrme_faddeev": {"coupling": 1.0}},
     "initial": {"family": "axial", "a": 1, "b": 1, "alpha": 1, "beta": 1, "factors": [], "parts": [],
                 "size": 1.0, "centre": [0.0, 0.0, 0.0], "orientation": [0.0, 0.0, 0.0],
-                "noise": 0.0, "seed": 0, "file": ""},
+                "noise": 0.0, "seed": 0, "file": "", "function": "field", "parameters": {}, "dataset": "",
+                "spacing": 0.0, "charge": 0},
     "relax": {"method": "lbfgs", "max_steps": 4000, "force_tol": 1e-3, "energy_tol": 1e-10,
               "patience": 20, "time_step": 0.0, "checkpoint_every": 100,
               "progress_seconds": 5.0, "hessian_modes": 0, "backend": "auto",
@@ -508,6 +509,47 @@ def _result_part(c: _Checker, file, base_dir: Path) -> dict:
     return {"family": "result", "file": str(path.resolve()), "charge": int(round(charge))}
 
 
+def _field_file_part(c: _Checker, family: str, table: dict, base_dir: Path, grid: GridSpec) -> dict:
+    """initial.family = "formula" or "array" (solitons.io.fields): a readable file, the
+    charge the field should carry (checked on the start field), the formula's function
+    and parameters or the array's dataset and spacing."""
+    file = table.get("file", "")
+    what = "a Python file with a function of (x, y, z)" if family == "formula" else "an .npy, .h5 or .hdf5 file"
+    if not isinstance(file, str) or not file:
+        c.fail("initial.file", file, f"the {family} family needs initial.file = the path of {what}")
+    path = Path(file) if Path(file).is_absolute() else base_dir / file
+    if not path.is_file():
+        c.fail("initial.file", file, f"no such file ({path})")
+    charge = table.get("charge", 0)
+    if not _is_int(charge) or charge == 0:
+        c.fail("initial.charge", charge, f"the {family} family needs the Hopf charge the field carries "
+               "(a non-zero integer; the start field is checked against it)")
+    part = {"family": family, "file": str(path.resolve()), "charge": int(charge)}
+    if family == "formula":
+        function = table.get("function", "field")
+        if not isinstance(function, str) or not function.isidentifier():
+            c.fail("initial.function", function, "must be the name of a function in initial.file")
+        parameters = table.get("parameters", {})
+        if not isinstance(parameters, dict) or not all(_is_real(v) for v in parameters.values()):
+            c.fail("initial.parameters", parameters, "must be a table of finite numbers")
+        part.update(function=function, parameters={k: float(v) for k, v in parameters.items()})
+    else:
+        dataset = table.get("dataset", "")
+        if not isinstance(dataset, str):
+            c.fail("initial.dataset", dataset, "must be the name of a dataset in the HDF5 file")
+        spacing = table.get("spacing", 0.0)
+        values = [spacing] * 3 if not isinstance(spacing, list) else spacing
+        if len(values) != 3 or not all(_is_real(v) and v >= 0 for v in values) or (any(values) and not all(values)):
+            c.fail("initial.spacing", spacing, "must be the file's lattice spacing (a positive number or three; "
+                   "0 = the run's grid.spacing)")
+        part.update(dataset=dataset, spacing=tuple(float(v) for v in values) if any(values) else grid.spacing)
+    unused = {"function", "parameters"} if family == "array" else {"dataset", "spacing"}
+    for key in unused:
+        if table.get(key, DEFAULTS["initial"][key]) != DEFAULTS["initial"][key]:
+            c.fail(f"initial.{key}", table[key], f"is not used by the {family} family")
+    return part
+
+
 def _check_axial(c: _Checker, grid: GridSpec, initial: InitialSpec, relax: RelaxSpec) -> None:
     """grid.symmetry = "axial": what the half plane can represent and run."""
     if grid.boundary != "fixed":
@@ -556,15 +598,21 @@ def validate(merged: dict, sources: dict, base_dir: Path = Path(".")) -> RunSpec
     family = c.choice("initial", "family", FAMILIES)
     if family == "result":
         part = _result_part(c, merged["initial"].get("file", ""), base_dir)
+    elif family in ("formula", "array"):
+        part = _field_file_part(c, family, merged["initial"], base_dir, grid)
     else:
         part = _initial_part(c, "initial", merged["initial"], top=True)
+    if family not in ("formula", "array"):
+        for key in ("function", "parameters", "dataset", "spacing", "charge"):
+            if merged["initial"].get(key, DEFAULTS["initial"][key]) != DEFAULTS["initial"][key]:
+                c.fail(f"initial.{key}", merged["initial"][key], "is used only by the formula and array families")
     initial = InitialSpec(
         family=family,
         part=part,
         noise=c.real("initial", "noise", non_negative=True),
         seed=c.integer("initial", "seed", minimum=0),
     )
-    if family != "result":
+    if family not in FILE_FAMILIES:
         _check_inside_box(c, grid, initial.part, "initial")
     relax = RelaxSpec(
         method=c.choice("relax", "method", METHODS),
@@ -612,12 +660,14 @@ def _toml_key(key: str) -> str:
 def dumps(merged: dict) -> str:
     """The merged configuration as TOML text (readable back by `load`), written by tomli-w.
     Keys added after results existed are left out while they hold their default
-    (grid.symmetry "none", initial.file ""), so the text, and the run hash from it, of a
+    (grid.symmetry "none"; initial.file "", and the keys of the formula and array
+    families), so the text, and the run hash from it, of a
     configuration that does not use them is what it was."""
     ordered = {table: dict(merged[table]) for table in ("grid", "initial", "relax") if table in merged}
     if ordered.get("grid", {}).get("symmetry") == "none":
         del ordered["grid"]["symmetry"]
-    if ordered.get("initial", {}).get("file") == "":
-        del ordered["initial"]["file"]
+    for key in ("file", "function", "parameters", "dataset", "spacing", "charge"):
+        if key in ordered.get("initial", {}) and ordered["initial"][key] == DEFAULTS["initial"][key]:
+            del ordered["initial"][key]
     ordered["terms"] = merged.get("terms", {})
     return tomli_w.dumps(ordered)

@@ -32,10 +32,13 @@ def user_files(spec: RunSpec) -> list[dict]:
 
 def run_hash(spec: RunSpec) -> str:
     """What decides a run's numbers: the merged configuration and the content of every
-    user-term file it loads.  Campaigns skip a finished run only when this is unchanged."""
+    user-term file it loads (and of the start field's file, for the formula and array
+    families).  Campaigns skip a finished run only when this is unchanged."""
     digest = hashlib.sha256(spec.text.encode())
     for entry in user_files(spec):
         digest.update(entry["sha256"].encode())
+    if spec.initial.family in ("formula", "array"):  # the start field's file decides the numbers too
+        digest.update(hashlib.sha256(Path(spec.initial.part["file"]).read_bytes()).hexdigest().encode())
     return digest.hexdigest()[:16]
 
 

@@ -117,7 +117,8 @@ def rational_map(grid: Grid, alpha: int, beta: int, factors, size: float = 1.0,
     return field_from_fraction(numerator, denominator)
 
 
-FAMILIES = ("axial", "torus_knot", "rational", "several", "result")
+FAMILIES = ("axial", "torus_knot", "rational", "several", "result", "formula", "array")
+FILE_FAMILIES = ("result", "formula", "array")  # start fields read from a file (solitons.io.fields)
 # "result": the relaxed field of a result file (an axial one rotated out onto the grid, see
 # solitons.axial.model.to_3d), read by the driver; ``charge`` is the file's rounded Hopf charge.
 
@@ -133,7 +134,7 @@ def expected_charge(part: dict) -> int:
     family = part["family"]
     if family == "axial":
         return part["a"] * part["b"]
-    if family == "result":
+    if family in FILE_FAMILIES:
         return part["charge"]
     if family == "several":
         return sum(expected_charge(p) for p in part["parts"])
@@ -149,6 +150,14 @@ def describe(part: dict) -> str:
         from pathlib import Path
 
         return f"result({Path(part['file']).parent.name or part['file']})"
+    if family == "formula":
+        from pathlib import Path
+
+        return f"formula({Path(part['file']).name}:{part['function']})"
+    if family == "array":
+        from pathlib import Path
+
+        return f"array({Path(part['file']).name}{':' + part['dataset'] if part['dataset'] else ''})"
     if family == "several":
         return " + ".join(describe(p) for p in part["parts"])
     if family == "torus_knot":
